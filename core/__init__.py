@@ -1,0 +1,19 @@
+"""Fulcrum's pure core: choose and defend a decision threshold for a rare event.
+
+Usable from a notebook in the scikit-learn style::
+
+    from core import sweep
+    curve = sweep(y_true, y_score)
+    curve.at(0.31).metrics["recall"]
+
+No Streamlit import lives anywhere under ``core``.
+"""
+
+from core.curve import Curve, OperatingPoint, sweep
+from core.errors import InputError
+from core.metrics import METRIC_NAMES, confusion_metrics
+
+__version__ = "0.1.0"
+
+__all__ = ["Curve", "OperatingPoint", "sweep", "InputError", "METRIC_NAMES", "confusion_metrics",
+           "__version__"]
