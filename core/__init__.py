@@ -17,3 +17,7 @@ __version__ = "0.1.0"
 
 __all__ = ["Curve", "OperatingPoint", "sweep", "InputError", "METRIC_NAMES", "confusion_metrics",
            "__version__"]
+
+from core.dataset import Dataset, IntakeWarning, Mapping  # noqa: E402
+
+__all__ += ["Dataset", "IntakeWarning", "Mapping"]
