@@ -71,7 +71,8 @@ def _check_labels(y_true) -> np.ndarray:
     raise InputError("y_true", f"must be 0/1 or bool; other values found {others}", _positions(bad))
 
 
-def _check_finite(name: str, values, n: int, *, allow_negative: bool = True) -> np.ndarray:
+def _check_finite(name: str, values, n: int, *, allow_negative: bool = True,
+                  check_values: bool = True) -> np.ndarray:
     arr = _as_1d(name, values)
     if arr.shape[0] != n:
         raise InputError(name, f"has {arr.shape[0]:,} values but y_true has {n:,}; lengths must match")
@@ -83,14 +84,26 @@ def _check_finite(name: str, values, n: int, *, allow_negative: bool = True) -> 
             bad = ser.isna().to_numpy() & ~pd.isna(pd.Series(arr, dtype=object)).to_numpy()
             raise InputError(name, "holds values that are not numbers", _positions(bad)) from None
     arr = np.asarray(arr, dtype=np.float64)
-    bad = ~np.isfinite(arr)
-    if bad.any():
-        raise InputError(name, "holds NaN or infinite values", _positions(bad))
+    if not check_values:  # the caller sorts and checks the ends (NaN sorts last)
+        return arr
+    _raise_if_not_finite(name, arr)
     if not allow_negative:
         neg = arr < 0
         if neg.any():
             raise InputError(name, "holds negative values", _positions(neg))
     return arr
+
+
+def _raise_if_not_finite(name: str, arr: np.ndarray) -> None:
+    bad = ~np.isfinite(arr)
+    if bad.any():
+        raise InputError(name, "holds NaN or infinite values", _positions(bad))
+
+
+def _check_sorted_ends(name: str, sorted_values: np.ndarray, original: np.ndarray) -> None:
+    """After a sort, NaN sits at the end and infinities at the ends: O(1) check."""
+    if sorted_values.shape[0] and not (np.isfinite(sorted_values[0]) and np.isfinite(sorted_values[-1])):
+        _raise_if_not_finite(name, original)
 
 
 def _check_both_classes(pos_total: float, neg_total: float, n: int, weighted: bool) -> None:
@@ -105,20 +118,23 @@ def _check_both_classes(pos_total: float, neg_total: float, n: int, weighted: bo
 
 # --------------------------------------------------------------------------- curve
 
-def _cum(cells: np.ndarray) -> np.ndarray:
-    out = np.empty(cells.shape[0] + 1, dtype=np.float64)
-    out[0] = 0.0
-    np.cumsum(cells, out=out[1:])
-    out.setflags(write=False)
-    return out
-
-
 def _readonly(a):
     if a is None:
         return None
     a = np.ascontiguousarray(a)
     a.setflags(write=False)
     return a
+
+
+def _positive_zero(asc: np.ndarray) -> np.ndarray:
+    """Write -0.0 as +0.0 in a sorted distinct array (at most one zero: O(log n))."""
+    asc = np.asarray(asc, dtype=np.float64)
+    i = int(np.searchsorted(asc, 0.0))
+    if i < asc.shape[0] and asc[i] == 0.0 and np.signbit(asc[i]):
+        if not asc.flags.writeable:
+            asc = asc.copy()
+        asc[i] = 0.0
+    return asc
 
 
 @dataclass(frozen=True)
@@ -195,32 +211,69 @@ class Curve:
 
     # ------------------------------------------------------------------ builders
     @classmethod
-    def _from_cells(cls, asc, pos, neg, *, higher_is_riskier, cost=None, pos_sq=None, neg_sq=None,
-                    n_rows, weighted):
-        """Build from per-distinct-score cells given in ascending score order."""
-        asc = np.asarray(asc, dtype=np.float64) + 0.0  # -0.0 -> +0.0
-        if higher_is_riskier:
-            order = slice(None, None, -1)
-            none = np.inf
-        else:
-            order = slice(None)
-            none = -np.inf
-        thresholds = np.empty(asc.shape[0] + 1, dtype=np.float64)
-        thresholds[0] = none
-        thresholds[1:] = asc[order]
-        tp = _cum(pos[order])
-        fp = _cum(neg[order])
-        ec = _cum(cost[order]) if cost is not None else None
-        tps = _cum(pos_sq[order]) if pos_sq is not None else None
-        fps = _cum(neg_sq[order]) if neg_sq is not None else None
+    def _from_cumulative(cls, asc, tp_strict, flagged_strict, *, higher_is_riskier, cost_strict=None,
+                         tp_sq_strict=None, flagged_sq_strict=None, n_rows, weighted):
+        """Build from distinct scores ``asc`` (ascending) and cumulative sums in point order.
+
+        The ``*_strict`` arrays hold, for the distinct scores from strictest to
+        loosest, the flagged event weight, the flagged total weight (and
+        optionally the flagged miss cost and squared-weight sums); "flag none"
+        (all zeros) is prepended here.
+        """
+        asc = _positive_zero(asc)
+        d = asc.shape[0]
+
+        def stack(first, values):
+            if values.shape[0] == d + 1 and values.dtype == np.float64 and values.flags.writeable:
+                values.setflags(write=False)  # already in point order with its first entry
+                return values
+            out = np.empty(d + 1, dtype=np.float64)
+            out[0] = first
+            out[1:] = values
+            out.setflags(write=False)
+            return out
+
+        thresholds = stack(np.inf if higher_is_riskier else -np.inf,
+                           asc[::-1] if higher_is_riskier else asc)
+        tp = stack(0.0, tp_strict)
+        fp = np.array(flagged_strict, dtype=np.float64, copy=None)
+        if fp.shape[0] == d:
+            fp = stack(0.0, fp)
+        fp.setflags(write=True)
+        np.subtract(fp, tp, out=fp)
+        fp.setflags(write=False)
+        ec = stack(0.0, cost_strict) if cost_strict is not None else None
+        tps = fps = None
+        if tp_sq_strict is not None:
+            tps = stack(0.0, tp_sq_strict)
+            fps = stack(0.0, flagged_sq_strict)
+            fps.setflags(write=True)
+            np.subtract(fps, tps, out=fps)
+            fps.setflags(write=False)
         return cls(
-            thresholds=_readonly(thresholds), tp=tp, fp=fp,
+            thresholds=thresholds, tp=tp, fp=fp,
             n_events=float(tp[-1]), n_nonevents=float(fp[-1]),
             higher_is_riskier=bool(higher_is_riskier),
             event_cost_flagged=ec, event_cost_total=None if ec is None else float(ec[-1]),
             tp_sq=tps, fp_sq=fps, n_rows=int(n_rows), weighted=bool(weighted),
             _ascending=_readonly(asc),
         )
+
+    @classmethod
+    def _from_cells(cls, asc, pos, neg, *, higher_is_riskier, cost=None, pos_sq=None, neg_sq=None,
+                    n_rows, weighted):
+        """Build from per-distinct-score cells given in ascending score order."""
+        def cum(cells):
+            if cells is None:
+                return None
+            cells = np.asarray(cells, dtype=np.float64)
+            return np.cumsum(cells[::-1] if higher_is_riskier else cells)
+
+        return cls._from_cumulative(
+            asc, cum(pos), cum(np.add(pos, neg)), higher_is_riskier=higher_is_riskier,
+            cost_strict=cum(cost), tp_sq_strict=cum(pos_sq),
+            flagged_sq_strict=None if pos_sq is None else cum(np.add(pos_sq, neg_sq)),
+            n_rows=n_rows, weighted=weighted)
 
     @classmethod
     def from_counts(cls, score, events, non_events, *, higher_is_riskier=True, event_cost=None,
@@ -506,7 +559,7 @@ def sweep(y_true, y_score, sample_weight=None, *, higher_is_riskier: bool = True
     """
     y = _check_labels(y_true)
     n = y.shape[0]
-    s = _check_finite("y_score", y_score, n)
+    s = _check_finite("y_score", y_score, n, check_values=False)  # finiteness: after the sort
     w = None if sample_weight is None else _check_finite("sample_weight", sample_weight, n,
                                                           allow_negative=False)
     a = None
@@ -525,27 +578,109 @@ def sweep(y_true, y_score, sample_weight=None, *, higher_is_riskier: bool = True
     else:
         _check_both_classes(float(w[y].sum()), float(w[~y].sum()), n, weighted=True)
 
-    s_sorted = np.sort(s)
-    boundary = np.flatnonzero(s_sorted[1:] != s_sorted[:-1]) + 1
-    starts = np.concatenate([[0], boundary])
-    asc = s_sorted[starts]
-    d = asc.shape[0]
-    pos_sq = neg_sq = cost = None
     if w is None:
-        per_value = np.diff(np.concatenate([starts, [n]])).astype(np.float64)
-        ev_idx = np.searchsorted(asc, s[y], side="left")
-        pos = np.bincount(ev_idx, minlength=d).astype(np.float64)
-        neg = per_value - pos
-        if a is not None:
-            cost = np.bincount(ev_idx, weights=a[y], minlength=d)
+        return _sweep_unweighted(y, s, a, higher_is_riskier)
+    return _sweep_weighted(y, s, w, a, higher_is_riskier)
+
+
+def _distinct(sorted_scores: np.ndarray):
+    """Distinct values of a sorted array and the start of each run (None: all distinct)."""
+    same = sorted_scores[1:] == sorted_scores[:-1]
+    if not same.any():
+        return sorted_scores, None
+    new_value = np.flatnonzero(~same)
+    new_value += 1
+    starts = np.empty(new_value.shape[0] + 1, dtype=np.int64)
+    starts[0] = 0
+    starts[1:] = new_value
+    return sorted_scores[starts], starts
+
+
+def _event_steps(ev_idx: np.ndarray, d: int, higher_is_riskier: bool) -> np.ndarray:
+    """Flagged events at points 0..d ("flag none" first) from the sorted distinct-score index of each event.
+
+    The count is a step function that rises only at the events' own points, so
+    it is written with one ``numpy.repeat`` of the running event count over
+    the gaps between them: no cumulative sum over all d points.
+    """
+    if higher_is_riskier:
+        q = (d - 1) - ev_idx[::-1]  # point order (0-based among points 1..d), ascending
     else:
-        idx = np.searchsorted(asc, s, side="left")
-        wy = np.where(y, w, 0.0)
-        pos = np.bincount(idx, weights=wy, minlength=d)
-        neg = np.bincount(idx, weights=w - wy, minlength=d)
-        pos_sq = np.bincount(idx, weights=wy * wy, minlength=d)
-        neg_sq = np.bincount(idx, weights=(w - wy) ** 2, minlength=d)
-        if a is not None:
-            cost = np.bincount(idx[y], weights=(w * np.where(y, a, 0.0))[y], minlength=d)
-    return Curve._from_cells(asc, pos, neg, higher_is_riskier=higher_is_riskier, cost=cost,
-                             pos_sq=pos_sq, neg_sq=neg_sq, n_rows=n, weighted=w is not None)
+        q = ev_idx
+    u, first = np.unique(q, return_index=True) if q.size else (q, q)
+    # events flagged once point u_i is reached: count of q <= u_i
+    reached = np.empty(u.shape[0] + 1, dtype=np.float64)
+    reached[0] = 0.0
+    reached[1:-1] = first[1:]
+    reached[-1] = q.shape[0]
+    lengths = np.empty(u.shape[0] + 1, dtype=np.int64)
+    lengths[0] = (u[0] if u.size else d) + 1  # the leading entry is "flag none"
+    lengths[1:-1] = np.diff(u)
+    if u.size:
+        lengths[-1] = d - u[-1]
+    return np.repeat(reached, lengths)
+
+
+def _sweep_unweighted(y, s, a, higher_is_riskier):
+    """One sort of the scores; events placed by binary search (sorted keys: cache friendly)."""
+    n = s.shape[0]
+    ss = np.sort(s)
+    _check_sorted_ends("y_score", ss, s)
+    asc, starts = _distinct(ss)
+    d = asc.shape[0]
+    ev_scores = s[y]
+    order = None
+    if a is not None:
+        order = np.argsort(ev_scores)  # events only: they are few
+        ev_scores = ev_scores[order]
+    else:
+        ev_scores = np.sort(ev_scores)
+    ev_idx = np.searchsorted(asc, ev_scores, side="left")
+    # flagged rows at the k-th point (k = 1..d), from the run starts of the sorted scores
+    if starts is None:
+        flagged = np.arange(0, d + 1, dtype=np.float64)  # includes "flag none"
+    elif higher_is_riskier:
+        flagged = n - starts[::-1]
+    else:
+        flagged = np.empty(d, dtype=np.int64)
+        flagged[:-1] = starts[1:]
+        flagged[-1] = n
+    tp = _event_steps(ev_idx, d, higher_is_riskier)
+    cost = None
+    if a is not None:
+        cells = np.bincount(ev_idx, weights=a[y][order], minlength=d)
+        cost = np.cumsum(cells[::-1] if higher_is_riskier else cells)
+    return Curve._from_cumulative(asc, tp, flagged, higher_is_riskier=higher_is_riskier,
+                                  cost_strict=cost, n_rows=n, weighted=False)
+
+
+def _sweep_weighted(y, s, w, a, higher_is_riskier):
+    """Weighted rows: one argsort carries each weight to its score (no way around a
+    permutation when every row has its own weight), then cumulative sums read at the
+    boundary of each run of tied scores, in point order."""
+    n = s.shape[0]
+    order = np.argsort(s)
+    if higher_is_riskier:
+        order = order[::-1]  # strictest first
+    ss = s[order]
+    _check_sorted_ends("y_score", ss, s)
+    ws = w[order]
+    wy = np.where(y[order], ws, 0.0)
+    if higher_is_riskier:
+        asc_rev, starts = _distinct(ss[::-1])
+        asc = asc_rev
+        # runs in strictest-first order end where the ascending runs start
+        ends = None if starts is None else (n - 1 - starts)[::-1]
+    else:
+        asc, starts = _distinct(ss)
+        ends = None if starts is None else np.r_[starts[1:] - 1, n - 1]
+
+    def cum(v):
+        c = np.cumsum(v)
+        return c if ends is None else c[ends]
+
+    cost = None if a is None else cum(np.where(y[order], ws * a[order], 0.0))
+    return Curve._from_cumulative(
+        np.ascontiguousarray(asc), cum(wy), cum(ws), higher_is_riskier=higher_is_riskier,
+        cost_strict=cost, tp_sq_strict=cum(wy * wy), flagged_sq_strict=cum(ws * ws),
+        n_rows=n, weighted=True)
