@@ -1,0 +1,44 @@
+"""Fulcrum's browser app: ``streamlit run app/main.py`` or ``fulcrum app``.
+
+Navigation and shared state live here; each page is one module in
+``app/views``. Uploaded data stay in this session's memory; nothing is
+written to disk.
+"""
+
+from __future__ import annotations
+
+import streamlit as st
+
+from app import format as fmt
+from app import state
+from core import cautions
+
+st.set_page_config(page_title="Fulcrum", layout="wide", initial_sidebar_state="expanded")
+state.init()
+
+
+def sidebar() -> None:
+    act = state.active()
+    ds = act.dataset
+    with st.sidebar:
+        st.markdown("### Fulcrum")
+        st.markdown(f"**Active data:** {act.label}")
+        c1, c2 = st.columns(2)
+        c1.metric("Cases", fmt.count(ds.n_rows))
+        c2.metric("Events", fmt.count(ds.n_events))
+        st.metric("Prevalence", fmt.pct(ds.prevalence, 2))
+        curve = ds.curve()
+        st.caption(f"Operating point: threshold {fmt.threshold(curve.thresholds[act.point])}")
+        st.caption(cautions.SHORT)
+
+
+PAGES = [
+    st.Page("views/scores.py", title="Scores", icon=":material/table_view:", url_path="scores",
+            default=True),
+    st.Page("views/tradeoffs.py", title="Trade-offs", icon=":material/tune:", url_path="tradeoffs"),
+    st.Page("views/decide.py", title="Decide", icon=":material/gavel:", url_path="decide"),
+]
+
+page = st.navigation(PAGES, position="sidebar")
+sidebar()
+page.run()

@@ -1,0 +1,193 @@
+"""Scores: choose the demo or upload a file, map its columns, see the intake's checks."""
+
+from __future__ import annotations
+
+import streamlit as st
+
+from app import charts, state
+from app import format as fmt
+from app.widgets import caution_line, few_events_note
+from core.errors import InputError
+from core.summaries import class_histogram
+
+UPLOAD = "upload"
+NONE = "(none)"
+
+
+def _demo_options() -> dict[str, str]:
+    from core.intake import DEMOS
+
+    return {name: demo.title for name, demo in DEMOS.items()}
+
+
+@st.cache_resource(max_entries=8)
+def _histogram(fingerprint: str, _dataset):
+    return class_histogram(_dataset, bins=60)
+
+
+def _read_upload(upload, options: dict):
+    """Read the uploaded bytes (in memory) once per file and read options."""
+    from core.intake import read_table
+
+    key = (upload.file_id, tuple(sorted(options.items())))
+    cached = st.session_state.get("scores_raw")
+    if cached is not None and cached[0] == key:
+        return cached[1]
+    raw = read_table(upload.getvalue(), file_name=upload.name, **options)
+    st.session_state["scores_raw"] = (key, raw)
+    return raw
+
+
+def _optional(label: str, columns: list[str], key: str, default=None, help=None):
+    opts = [NONE] + columns
+    index = opts.index(default) if default in opts else 0
+    value = st.selectbox(label, opts, index=index, key=key, help=help)
+    return None if value == NONE else value
+
+
+def _mapping_form(raw):
+    """Every mapping field the intake offers; returns a core Mapping or None."""
+    from core.dataset import Mapping
+    from core.intake import label_values, suggest_mapping
+
+    cols = raw.columns
+    guess = suggest_mapping(raw)
+    kind = st.radio("What is in the file?", ["rows", "counts"], horizontal=True, key="map_kind",
+                    format_func=lambda k: "One row per case" if k == "rows" else
+                    "A count table (score, events, non-events)")
+    c1, c2, c3 = st.columns(3)
+    score = c1.selectbox("Score column", cols, index=cols.index(guess.score) if guess.score in cols else 0,
+                         key="map_score")
+    lower = c1.checkbox("Lower score = higher risk", key="map_lower", value=not guess.higher_is_riskier)
+    if kind == "counts":
+        events = c2.selectbox("Events column", cols, key="map_events")
+        non_events = c3.selectbox("Non-events column", cols, key="map_non_events")
+        event_cost = _optional("Summed miss cost of the events (optional)", cols, "map_event_cost")
+        return Mapping(score=score, kind="counts", events=events, non_events=non_events,
+                       event_cost=event_cost, higher_is_riskier=not lower)
+    label_default = guess.label if guess.label in cols else cols[min(1, len(cols) - 1)]
+    label = c2.selectbox("Label column (the outcome)", cols, index=cols.index(label_default), key="map_label")
+    values = label_values(raw, label)
+    value_names = [str(v) for v in values["value"].tolist()] if hasattr(values, "columns") else \
+        [str(v) for v in values]
+    pos_default = str(guess.positive_label) if guess.label == label and guess.positive_label is not None else None
+    pos_index = value_names.index(pos_default) if pos_default in value_names else max(len(value_names) - 1, 0)
+    positive = c3.selectbox("Which value is the event?", value_names, index=pos_index, key="map_positive",
+                            help="The rare outcome the score should flag.") if value_names else None
+    with st.expander("Optional columns: weights, groups, repeated cases, times, costs"):
+        o1, o2 = st.columns(2)
+        weight = _optional("Weight column", cols, "map_weight", guess.weight)
+        weight_kind = None
+        if weight:
+            weight_kind = o1.radio("Weight kind", ["frequency", "sampling"], key="map_weight_kind",
+                                   help="frequency: a row stands for w identical cases; sampling: "
+                                        "inverse selection probability.")
+        groups = st.multiselect("Group columns (subgroup checks)", cols, default=[g for g in guess.groups if g in cols],
+                                key="map_groups")
+        cluster = _optional("Cluster column (patient or customer id)", cols, "map_cluster", guess.cluster)
+        score_time = _optional("Score-time column", cols, "map_score_time", guess.score_time)
+        outcome_time = _optional("Outcome-time column", cols, "map_outcome_time", guess.outcome_time)
+        horizon = None
+        if outcome_time or score_time:
+            horizon = o2.number_input("Outcome horizon (days)", min_value=0.0, value=float(
+                guess.outcome_horizon_days or 30.0), key="map_horizon")
+        case_cost = _optional("Case-cost column (what a missed event costs)", cols, "map_case_cost",
+                              guess.case_cost)
+        drop_missing = st.checkbox("Drop rows with a missing score (the count is reported and goes into "
+                                   "the memo)", key="map_drop_missing")
+    return Mapping(score=score, label=label, positive_label=positive, weight=weight, weight_kind=weight_kind,
+                   groups=tuple(groups), cluster=cluster, score_time=score_time, outcome_time=outcome_time,
+                   outcome_horizon_days=horizon, case_cost=case_cost, higher_is_riskier=not lower,
+                   drop_missing_scores=drop_missing)
+
+
+def _upload_section() -> None:
+    from core.intake import load_dataset
+
+    upload = st.file_uploader("Validation scores: CSV, TSV, Parquet or Excel (kept in memory only)",
+                              type=["csv", "tsv", "txt", "gz", "parquet", "pq", "xlsx", "xlsm"],
+                              key="scores_upload")
+    if upload is None:
+        st.info("Upload a file to map its columns. Nothing you upload is written to disk.")
+        return
+    with st.expander("Read options (detected automatically; override if the file needs it)"):
+        r1, r2, r3 = st.columns(3)
+        delim = r1.selectbox("Delimiter", ["detect", ",", ";", "tab", "|"], key="read_delim")
+        dec = r2.selectbox("Decimal mark", ["detect", ".", ","], key="read_decimal")
+        sheet = r3.text_input("Excel sheet (empty: the first)", key="read_sheet")
+    options = {}
+    if delim != "detect":
+        options["delimiter"] = "\t" if delim == "tab" else delim
+    if dec != "detect":
+        options["decimal"] = dec
+    if sheet.strip():
+        options["sheet"] = sheet.strip()
+    try:
+        raw = _read_upload(upload, options)
+    except InputError as exc:
+        st.error(str(exc))
+        return
+    info = raw.info
+    st.caption(f"Read {fmt.count(raw.n_rows)} rows × {len(raw.columns)} columns as {info.format}"
+               + (f", delimiter {info.delimiter!r}, decimal {info.decimal!r}" if info.delimiter else "")
+               + (f", sheet {info.sheet!r}" if info.sheet else "") + ".")
+    for note in info.notes:
+        st.caption(note)
+    try:
+        mapping = _mapping_form(raw)
+    except InputError as exc:
+        st.error(str(exc))
+        return
+    if st.button("Use this mapping", type="primary", key="map_apply"):
+        try:
+            ds = load_dataset(raw, mapping)
+        except InputError as exc:
+            st.error(str(exc))
+            return
+        st.session_state[state.SOURCE] = UPLOAD
+        state.set_dataset(ds, label=upload.name)
+        st.success(f"Loaded {upload.name}: {fmt.count(ds.n_rows)} cases, {fmt.count(ds.n_events)} events.")
+
+
+def _summary() -> None:
+    act = state.active()
+    ds = act.dataset
+    st.subheader(f"Summary: {act.label}")
+    lo, hi = ds.score_range
+    c = st.columns(5)
+    c[0].metric("Cases", fmt.count(ds.n_rows))
+    c[1].metric("Events", fmt.count(ds.n_events))
+    c[2].metric("Prevalence", fmt.pct(ds.prevalence, 2))
+    c[3].metric("Score range", f"{fmt.num(lo, 3)} to {fmt.num(hi, 3)}")
+    c[4].metric("Distinct scores", fmt.count(ds.curve().n_points - 1))
+    st.caption(f"Fingerprint (SHA-256 of the mapped data and mapping): `{ds.fingerprint}`")
+    if ds.dropped_rows:
+        st.warning(f"{fmt.count(ds.dropped_rows)} rows with a missing score were dropped at your request; "
+                   "the memo reports them.")
+    for w in ds.warnings:
+        st.warning(str(w))
+    few_events_note(ds)
+    log_counts = st.toggle("Log scale for counts (events are rare)", value=True, key="scores_log")
+    st.plotly_chart(charts.distribution_figure(_histogram(ds.fingerprint, ds), None, log_counts=log_counts,
+                                               score_label=ds.mapping.score),
+                    key="scores_dist", config={"displaylogo": False})
+
+
+def render() -> None:
+    st.title("Scores")
+    caution_line()
+    demos = _demo_options()
+    choices = list(demos) + [UPLOAD]
+    current = st.session_state.get(state.SOURCE, state.DEMO_DEFAULT)
+    source = st.radio("Data", choices, index=choices.index(current) if current in choices else 0,
+                      format_func=lambda c: demos.get(c, "Upload my own file"), key="scores_source",
+                      horizontal=True)
+    if source != UPLOAD and source != current:
+        st.session_state[state.SOURCE] = source
+        state.set_dataset(state.demo_dataset(source), label=demos[source])
+    if source == UPLOAD:
+        _upload_section()
+    _summary()
+
+
+render()

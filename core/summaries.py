@@ -1,0 +1,56 @@
+"""Per-class score distributions: binned counts of events and non-events.
+
+Used by the score-distribution charts and (with fixed bins) by the drift
+reference that a decision record stores. Counts are weighted when the data
+carry weights; a count table contributes its per-score totals.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["ClassHistogram", "class_histogram"]
+
+
+@dataclass(frozen=True)
+class ClassHistogram:
+    """``edges`` (bins + 1), ``events`` and ``non_events`` (bins) weighted counts."""
+
+    edges: np.ndarray
+    events: np.ndarray
+    non_events: np.ndarray
+
+    @property
+    def centers(self) -> np.ndarray:
+        return (self.edges[1:] + self.edges[:-1]) / 2.0
+
+    @property
+    def widths(self) -> np.ndarray:
+        return np.diff(self.edges)
+
+
+def class_histogram(dataset, bins: int = 60, edges=None) -> ClassHistogram:
+    """Binned event and non-event counts of a :class:`core.dataset.Dataset`.
+
+    ``edges`` fixes the bins (a drift check needs the reference's bins);
+    otherwise ``bins`` equal-width bins span the score range. Bins are closed
+    on the left except the last, as ``numpy.histogram``.
+    """
+    s = dataset.y_score
+    if dataset.kind == "counts":
+        w_pos, w_neg = dataset.events, dataset.non_events
+    else:
+        w = np.ones_like(s) if dataset.sample_weight is None else dataset.sample_weight
+        w_pos = np.where(dataset.y_true, w, 0.0)
+        w_neg = w - w_pos
+    if edges is None:
+        lo, hi = float(s.min()), float(s.max())
+        if hi <= lo:
+            hi = lo + 1.0
+        edges = np.linspace(lo, hi, int(bins) + 1)
+    edges = np.asarray(edges, dtype=np.float64)
+    ev, _ = np.histogram(s, bins=edges, weights=w_pos)
+    ne, _ = np.histogram(s, bins=edges, weights=w_neg)
+    return ClassHistogram(edges=edges, events=ev, non_events=ne)
