@@ -19,13 +19,12 @@ validation prevalence (this keeps the total) -- and then all by
 ``cases_per_period x periods / cases``, so the periods keep the data's time
 pattern while their mean volume and case mix are those of deployment.
 
-Algorithm (no Python loop over rows): each row's curve point index (the
-first point that flags it) comes from one binary search against the curve's
-distinct scores; rows are sorted once by that index, so the rows flagged at
-point k are a prefix, and the per-period counts at k are one ``bincount``
-of that prefix's period ids. Counts at m points at once come from one
-``bincount`` over (period, first point among the m that flags the row)
-followed by a cumulative sum. Flags per period never fall as the threshold
+Algorithm (no Python loop over rows): rows are sorted once by risk, which
+gives each row's curve point (the first point that flags it: a running
+count of distinct scores), so the rows flagged at point k are a prefix and
+the per-period counts at k are one ``bincount`` of that prefix's period
+ids. Counts at m points at once come from one ``bincount`` over (period,
+first point among the m that flags the row) followed by a cumulative sum. Flags per period never fall as the threshold
 loosens, so the largest point whose quantile stays within capacity is found
 by binary search (O(log n) counts).
 """
@@ -92,15 +91,28 @@ def period_index(score_time, period: str = "day") -> tuple[np.ndarray, np.ndarra
     return ids.astype(np.int64), starts
 
 
-def _row_points(curve, y_score) -> np.ndarray:
-    """Index of the first curve point that flags each row (ties move together)."""
-    asc = curve.distinct_scores
-    d = asc.shape[0]
-    s = np.asarray(y_score, dtype=np.float64)
-    j = np.searchsorted(asc, s, side="left")
-    if np.any(j >= d) or np.any(asc[np.minimum(j, d - 1)] != s):
-        raise InputError("y_score", "holds scores that are not on the curve (use the dataset's own curve)")
-    return (d - j) if curve.higher_is_riskier else (j + 1)
+def _sorted_row_points(curve, y_score) -> tuple[np.ndarray, np.ndarray]:
+    """Rows from the riskiest score down, and the first curve point that flags each.
+
+    Returns ``(order, points)``: ``order`` sorts the rows by risk (one
+    ``argsort``), ``points[i]`` is the point index of row ``order[i]``
+    (non-decreasing; ties share a point, as the curve's ties move together).
+    """
+    s = np.asarray(y_score, dtype=np.float64) + 0.0
+    order = np.argsort(-s if curve.higher_is_riskier else s, kind="stable")
+    ss = s[order]
+    # a new distinct score starts a new point; the first row's point is 1
+    points = np.empty(ss.shape[0], dtype=np.int64)
+    if ss.shape[0]:
+        points[0] = 1
+        np.cumsum(ss[1:] != ss[:-1], out=points[1:])
+        points[1:] += 1
+    d = curve.distinct_scores.shape[0]
+    if ss.shape[0] and (points[-1] != d or ss[0] != curve.thresholds[1]
+                        or ss[-1] != curve.thresholds[-1]):
+        raise InputError("y_score", "holds scores that are not those of the curve "
+                         "(use the dataset's own curve)")
+    return order, points
 
 
 class PeriodFlags:
@@ -145,9 +157,7 @@ class PeriodFlags:
         if cases_per_period is not None and self.data_cases_per_period > 0:
             self.scale = float(cases_per_period) / self.data_cases_per_period
         self.n_curve_points = curve.n_points
-        rp = _row_points(curve, y_score)
-        order = np.argsort(rp, kind="stable")
-        self._rp = rp[order]
+        order, self._rp = _sorted_row_points(curve, y_score)
         self._ids = ids[order]
         self._w = w[order] * self.scale
         self._ev = ev[order]
@@ -180,10 +190,12 @@ class PeriodFlags:
             return np.zeros((self.n_periods, 0))
         order = np.argsort(ks, kind="stable")
         ks_sorted = ks[order]
-        # first of the sorted points that flags each row (m: none of them does)
-        j = np.searchsorted(ks_sorted, self._rp, side="left")
-        keep = j < m
-        cells = np.bincount(self._ids[keep] * m + j[keep], weights=self._weights(None, prevalence)[keep],
+        # rows are sorted by point, so the rows first flagged at each of the sorted points form
+        # consecutive segments of the flagged prefix
+        bounds = np.searchsorted(self._rp, ks_sorted, side="right")
+        stop = int(bounds[-1])
+        seg = np.repeat(np.arange(m, dtype=np.int64), np.diff(np.concatenate([[0], bounds])))
+        cells = np.bincount(self._ids[:stop] * m + seg, weights=self._weights(stop, prevalence),
                             minlength=self.n_periods * m).reshape(self.n_periods, m)
         cum = np.cumsum(cells, axis=1)
         out = np.empty_like(cum)
