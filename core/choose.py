@@ -56,10 +56,10 @@ from core.capacity import PeriodFlags
 from core.dataset import Dataset
 from core.errors import InputError
 from core.metrics import confusion_metrics
-from core.policy import (OBJECTIVE_LABELS, RULE_LABELS, RULES, Policy, ResolvedPolicy,
+from core.policy import (OBJECTIVE_LABELS, RULE_LABELS, Policy, ResolvedPolicy,
                          resolve_policy)
 
-__all__ = ["RuleCheck", "PointReport", "Choice", "choose", "evaluate", "json_safe"]
+__all__ = ["RuleCheck", "PointReport", "Choice", "choose", "evaluate", "cost_by_threshold", "json_safe"]
 
 _RTOL = _costs.TIE_RTOL
 
@@ -778,7 +778,8 @@ def _explain(a: _Analysis, choice_point, origin, infeasible_msgs, sens) -> str:
     rr = sens.get("optimal_range_with_rules") or sens.get("optimal_range")
     if rr is not None:
         lo, hi = rr
-        lines.append(f"This point is cost-optimal for cost ratios (miss : false alarm) from "
+        what = "mean miss cost : false alarm" if a.case_dep else "miss : false alarm"
+        lines.append(f"This point is cost-optimal for cost ratios ({what}) from "
                      f"{_fmt_num(lo, 3)} to {_fmt_num(hi, 3)}"
                      + (f"; the policy's ratio is {_fmt_num(sens['policy_ratio'], 3)}."
                         if sens.get("policy_ratio") is not None else "."))
@@ -888,3 +889,29 @@ def evaluate(data, policy: Policy, threshold: float, *, calibrated: bool = False
     a.search()
     k = a.curve.index_at(t)
     return _build(a, k, "user", threshold=t)
+
+
+def cost_by_threshold(data, policy: Policy) -> pd.DataFrame:
+    """Expected cost at every point of the curve, at the deployment prevalence (the cost chart).
+
+    Columns: ``threshold``, ``flag_rate`` (at pi), ``cost_per_case`` and,
+    when the policy gives (or the data imply) cases per period,
+    ``cost_per_period``; one row per curve point, "flag none" first.
+    Raises :class:`~core.policy.PolicyError` when the policy has no costs.
+    """
+    from core.policy import PolicyError
+
+    curve = data.curve() if isinstance(data, Dataset) else data
+    rp = resolve_policy(policy, data)
+    if not rp.costs_given:
+        raise PolicyError(["[costs]: needed for the cost chart; give false_positive and false_negative "
+                           "(or false_negative_column)"])
+    cost = _costs.expected_cost(curve, false_positive=rp.false_positive, false_negative=rp.false_negative,
+                                true_positive=rp.true_positive, true_negative=rp.true_negative,
+                                prevalence=rp.prevalence)
+    df = pd.DataFrame({"threshold": curve.thresholds,
+                       "flag_rate": curve.metrics(prevalence=rp.prevalence)["flag_rate"],
+                       "cost_per_case": cost})
+    if rp.cases_per_period is not None:
+        df["cost_per_period"] = cost * rp.cases_per_period
+    return df

@@ -9,7 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from statsmodels.stats.proportion import proportion_confint
 
-from core.choose import choose, evaluate
+from core.choose import choose, cost_by_threshold, evaluate
 from core.dataset import Dataset
 from core.policy import Costs, Deployment, Objective, Policy, PolicyError, Rules, loads_policy
 
@@ -571,3 +571,17 @@ def test_policy_that_does_not_fit_the_data_is_an_error():
     ds = _hospital(2000, with_time=False)
     with pytest.raises(PolicyError, match="capacity_quantile: needs a score-time column"):
         choose(ds, loads_policy(HOSPITAL))
+
+
+def test_cost_by_threshold_matches_the_reported_points():
+    ds = _hospital(5000, with_time=False)
+    policy = loads_policy(HOSPITAL.replace("capacity_quantile = 0.9\n", ""))
+    df = cost_by_threshold(ds, policy)
+    choice = choose(ds, policy)
+    assert len(df) == ds.curve().n_points and df["threshold"].iloc[0] == np.inf
+    k = choice.point.index
+    assert df["cost_per_case"].iloc[k] == pytest.approx(choice.point.cost_per_case)
+    assert df["cost_per_period"].iloc[k] == pytest.approx(choice.point.cost_per_period)
+    assert df["cost_per_case"].iloc[0] == pytest.approx(25 * 0.02)
+    with pytest.raises(PolicyError, match="needed for the cost chart"):
+        cost_by_threshold(ds, Policy(objective=Objective("max_youden")))
