@@ -21,3 +21,11 @@ __all__ = ["Curve", "OperatingPoint", "sweep", "InputError", "METRIC_NAMES", "co
 from core.dataset import Dataset, IntakeWarning, Mapping  # noqa: E402
 
 __all__ += ["Dataset", "IntakeWarning", "Mapping"]
+
+from core.choose import Choice, PointReport, RuleCheck, choose, cost_by_threshold, evaluate  # noqa: E402
+from core.policy import (Costs, Deployment, Fairness, Objective, Policy, PolicyError,  # noqa: E402
+                         Rules, dumps_policy, load_policy, loads_policy, resolve_policy, save_policy)
+
+__all__ += ["Choice", "PointReport", "RuleCheck", "choose", "cost_by_threshold", "evaluate", "Costs",
+            "Deployment", "Fairness", "Objective", "Policy", "PolicyError", "Rules", "dumps_policy",
+            "load_policy", "loads_policy", "resolve_policy", "save_policy"]
