@@ -1,0 +1,980 @@
+"""The exact bootstrap: resample the cells between event scores, not the rows.
+
+Every objective and rule improves when false positives fall at fixed true
+positives, so everything Fulcrum decides depends on the data only through
+the counts at the *event points* (the distinct scores that hold an event,
+plus "flag none"). Cut the sorted data into cells, strictest first:
+
+* a *tie cell* for every event point: the events and the non-events that
+  share that score (ties move together, so they keep their own cell);
+* a *gap cell* for each run of non-event scores between two consecutive
+  event scores (and after the loosest one);
+* extra cuts at any threshold whose counts are wanted (a pre-specified
+  threshold that is not an event score).
+
+Drawing n rows with replacement puts a Multinomial(n, cell counts / n) number
+of rows in the cells, separately for events and non-events within each
+cell. So drawing the *cell counts* from that multinomial gives exactly the
+distribution of row resampling for every statistic that depends only on the
+counts at the cell boundaries: the choice of every objective and rule (with
+or without a confidence bound), ROC AUC (the trapezoids through every point
+of a row curve lie on the segments between cell boundaries: gap cells are
+horizontal, tie cells the diagonal of the ties), average precision, precision
+at a recall level, TPR at an FPR level, and every metric, expected cost and
+flag count at a cell boundary. Designs:
+
+* ``"cohort"`` (default): the rows were sampled together, so the number of
+  events is part of the sampling uncertainty; each replicate draws the
+  event total from Binomial(n, P / n) and then the cells of each class
+  (the two steps factor the joint multinomial over all cells exactly);
+* ``"case-control"``: events and non-events were sampled separately
+  (stratified resampling): each class keeps its total and only the cells
+  within it are drawn.
+
+The exceptions (what is not a function of cell counts):
+
+* per-case miss costs: the events are resampled as rows (they are few) when
+  the rows are at hand (a :class:`~core.dataset.Dataset`); from a bare Curve
+  each cell's events carry the cell's mean cost (exact when a cell holds one
+  event, as with continuous scores, or its events share one cost);
+* sampling weights: from a Dataset the rows are resampled with their weights
+  (exact, O(n) per replicate); from a Curve the cell sums of weights and of
+  squared weights are carried and each cell is drawn as W^2 / Q equal-weight
+  units of weight Q / W (``"moments"``: the replicate cell totals keep the
+  row bootstrap's mean and, up to the multinomial covariance, its variance;
+  exact when weights are equal within each cell);
+* capacity over time (flags per period from score times): not resampled; a
+  capacity-quantile rule enters every replicate as the full-data limit on the
+  threshold (see :mod:`core.stability`).
+
+Frequency weights (a row stands for w identical cases) are used as the
+counts they are: with integer weights each replicate resamples the cases
+exactly. Non-integer frequency weights are masses: a replicate draws
+round(W) cases with probabilities proportional to the masses and scales
+each by W / round(W).
+
+How a class's multinomial is drawn (exactly, no approximation): cells of
+at most 4 rows are drawn as rows (uniform integers, then a binary search to
+the cell); the larger cells get independent Poisson counts with means
+proportional to their size, whose total S is then corrected to the class
+total m -- m - S more rows drawn in proportion to the cells when S < m, a
+uniformly random S - m of the drawn rows removed when S > m. Given S, the
+Poisson counts are multinomial with the cells' shares, and adding or
+removing uniformly chosen rows keeps them multinomial, so the result is
+Multinomial(m, shares). Cost per replicate: one Poisson draw per large cell,
+about one uniform integer per row of the small cells, O(sqrt(n)) for the
+correction, then O(cells) vectorised statistics -- no sort, nothing of
+order n (except sampling weights with rows).
+
+Reproducibility: replicate r draws from its own generator
+``numpy.random.default_rng([seed, r])``, so any chunking (for a progress
+bar), the app and the command line give the same replicates.
+
+The percentile interval (Efron & Tibshirani, *An Introduction to the
+Bootstrap*, 1993) of a statistic is the pair of empirical quantiles
+(``numpy.quantile``, linear interpolation) at (1 - c) / 2 and (1 + c) / 2 of
+the replicates where the statistic is defined.
+"""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from core.curve import Curve
+from core.errors import InputError
+
+__all__ = [
+    "DESIGNS",
+    "SMALL_CELL",
+    "EventCells",
+    "ReplicateChunk",
+    "event_cells",
+    "bootstrap_counts",
+    "replicate_seeds",
+    "roc_auc",
+    "average_precision",
+    "counts_at",
+    "precision_at_recall",
+    "tpr_at_fpr",
+    "percentile_interval",
+    "BootstrapResult",
+    "bootstrap",
+    "DEFAULT_REPLICATES",
+    "DEFAULT_RECALL_GRID",
+    "DEFAULT_FPR_GRID",
+]
+
+#: Sampling designs: rows drawn together, or events and non-events drawn separately.
+DESIGNS = ("cohort", "case-control")
+
+#: Cells of at most this many (integer) rows are drawn as rows, larger ones by Poisson counts.
+SMALL_CELL = 4
+
+DEFAULT_REPLICATES = 2000
+DEFAULT_RECALL_GRID = np.linspace(0.01, 1.0, 100)
+DEFAULT_FPR_GRID = np.linspace(0.0, 1.0, 101)
+
+_SAMPLING_METHODS = ("rows", "moments")
+
+
+def _check_design(design: str) -> str:
+    if design not in DESIGNS:
+        raise InputError("design", f"must be one of {', '.join(DESIGNS)}, got {design!r}")
+    return design
+
+
+def replicate_seeds(seed: int, start: int, stop: int):
+    """The generator of each replicate r in ``start..stop-1``: ``default_rng([seed, r])``."""
+    return [np.random.default_rng([int(seed), int(r)]) for r in range(start, stop)]
+
+
+# --------------------------------------------------------------------------- units
+
+class _Units:
+    """One class's resampling units (cells, or rows) and how they map to cells.
+
+    ``mass`` is how many cases each unit stands for (a cell's row count, a
+    row's frequency weight, or a cell's effective size); a drawn unit adds
+    ``unit_weight`` (x ``scale``) to its cell's weight, its square to the
+    cell's squared weight and ``unit_cost`` (x ``scale``) to its cell's miss
+    cost.
+    """
+
+    def __init__(self, mass, n_cells, *, cell=None, unit_weight=None, unit_cost=None,
+                 track_sq=False):
+        mass = np.asarray(mass, dtype=np.float64)
+        self.n_cells = int(n_cells)
+        self.cell = None if cell is None else np.asarray(cell, dtype=np.int64)
+        self.unit_weight = None if unit_weight is None else np.asarray(unit_weight, dtype=np.float64)
+        self.unit_cost = None if unit_cost is None else np.asarray(unit_cost, dtype=np.float64)
+        self.track_sq = bool(track_sq)
+        self.k = mass.shape[0]
+        total = float(mass.sum())
+        self.total_mass = total
+        self.integer = bool(np.all(mass == np.round(mass)))
+        self.n_units = int(round(total))
+        self.scale = 1.0 if self.integer or self.n_units == 0 else total / self.n_units
+        positive = mass > 0
+        if self.integer:
+            small = positive & (mass <= SMALL_CELL)
+        else:
+            small = np.zeros(self.k, dtype=bool)
+        large = positive & ~small
+        self.small_idx = np.flatnonzero(small)
+        self.small_cum = np.cumsum(mass[small].astype(np.int64))
+        self.small_total = int(self.small_cum[-1]) if self.small_cum.size else 0
+        self.small_singletons = bool(self.small_idx.size and np.all(mass[small] == 1))
+        # row -> unit of the small units, so a drawn row finds its unit by a gather
+        self.small_rows = None if self.small_singletons else np.repeat(
+            np.arange(self.small_idx.size, dtype=np.int32 if self.small_idx.size < 2**31 else np.int64),
+            mass[small].astype(np.int64))
+        self.large_idx = np.flatnonzero(large)
+        self.large_mass = mass[large]
+        self.large_total = float(self.large_mass.sum())
+        if self.integer:
+            self.large_cum = np.cumsum(self.large_mass.astype(np.int64))
+        else:
+            self.large_cum = np.cumsum(self.large_mass)
+        self.large_share = self.large_mass / self.large_total if self.large_idx.size else self.large_mass
+        self.small_share = (self.small_total / total) if total > 0 else 0.0
+
+    # ------------------------------------------------------------------ draws
+    def draw(self, g: np.random.Generator, m: int) -> np.ndarray:
+        """Multinomial(m, mass / total) counts over the units (exact; see the module docstring)."""
+        counts = np.zeros(self.k, dtype=np.int64)
+        if m <= 0:
+            return counts
+        if self.large_idx.size == 0:
+            m_small = m
+        elif self.small_idx.size == 0:
+            m_small = 0
+        else:
+            m_small = int(g.binomial(m, self.small_share))
+        if m_small:
+            u = g.integers(0, self.small_total, m_small)
+            if self.small_singletons:
+                counts[self.small_idx] = np.bincount(u, minlength=self.small_idx.size)
+            else:
+                counts[self.small_idx] = np.bincount(self.small_rows[u], minlength=self.small_idx.size)
+        m_large = m - m_small
+        if m_large:
+            counts[self.large_idx] = self._draw_large(g, m_large)
+        return counts
+
+    def _draw_large(self, g, m):
+        x = g.poisson(m * self.large_share)
+        s = int(x.sum())
+        if s < m:  # add m - s rows drawn in proportion to the cells
+            if self.integer:
+                u = g.integers(0, int(self.large_cum[-1]), m - s)
+            else:
+                u = g.random(m - s) * self.large_cum[-1]
+            j = np.minimum(np.searchsorted(self.large_cum, u, side="right"), x.shape[0] - 1)
+            x += np.bincount(j, minlength=x.shape[0])
+        elif s > m:  # remove a uniformly random s - m of the s drawn rows
+            pos = g.choice(s, size=s - m, replace=False)
+            j = np.searchsorted(np.cumsum(x), pos, side="right")
+            x -= np.bincount(j, minlength=x.shape[0])
+        return x
+
+    def to_cells(self, counts: np.ndarray):
+        """Cell weight, squared weight and miss cost of drawn unit ``counts``."""
+        c = counts.astype(np.float64)
+        w = c if self.unit_weight is None else c * self.unit_weight
+        sq = None
+        if self.track_sq:
+            uw = np.ones(self.k) if self.unit_weight is None else self.unit_weight
+            sq = c * (uw * self.scale) ** 2
+        cost = None if self.unit_cost is None else c * self.unit_cost
+        if self.scale != 1.0:
+            w = w * self.scale
+            if cost is not None:
+                cost = cost * self.scale
+        if self.cell is not None:
+            n = self.n_cells
+            w = np.bincount(self.cell, weights=w, minlength=n)
+            if sq is not None:
+                sq = np.bincount(self.cell, weights=sq, minlength=n)
+            if cost is not None:
+                cost = np.bincount(self.cell, weights=cost, minlength=n)
+        return w, sq, cost
+
+
+# --------------------------------------------------------------------------- cells
+
+@dataclass(frozen=True, eq=False)
+class EventCells:
+    """A curve compressed to the cells between consecutive event scores.
+
+    Cells are in point order (strictest first); cell i covers the curve
+    points after ``index[i - 1]`` up to and including ``index[i]`` (after
+    "flag none" for i = 0), so the cumulative sums of ``events`` and
+    ``non_events`` are the curve's ``tp`` and ``fp`` at ``index``.
+
+    Attributes
+    ----------
+    thresholds : ndarray (C,)
+        Each cell's loosest score: the threshold at its boundary.
+    index : ndarray (C,)
+        The boundary's point index on the source curve.
+    events, non_events : ndarray (C,)
+        (Weighted) events and non-events in each cell.
+    is_event : ndarray (C,) of bool
+        True for a tie cell (its boundary is an event point).
+    events_sq, non_events_sq : ndarray (C,) or None
+        Sums of squared weights (sampling weights).
+    event_cost : ndarray (C,) or None
+        Summed miss cost of each cell's events.
+    weight_kind : None, "frequency" or "sampling"
+    sampling_method : None, "rows" or "moments"
+        How sampling weights are resampled (see the module docstring).
+    cost_exact : bool
+        Whether replicate miss costs are exact (events resampled as rows, or
+        one event unit per cell).
+    curve : Curve
+        The source curve.
+    """
+
+    thresholds: np.ndarray
+    index: np.ndarray
+    events: np.ndarray
+    non_events: np.ndarray
+    is_event: np.ndarray
+    higher_is_riskier: bool
+    curve: Curve
+    weight_kind: str | None = None
+    sampling_method: str | None = None
+    events_sq: np.ndarray | None = None
+    non_events_sq: np.ndarray | None = None
+    event_cost: np.ndarray | None = None
+    cost_exact: bool = True
+    _event_units: _Units = field(default=None, repr=False)
+    _nonevent_units: _Units = field(default=None, repr=False)
+
+    @property
+    def n_cells(self) -> int:
+        return int(self.index.shape[0])
+
+    @property
+    def n_events(self) -> float:
+        return float(self.curve.n_events)
+
+    @property
+    def n_nonevents(self) -> float:
+        return float(self.curve.n_nonevents)
+
+    @property
+    def n_event_cells(self) -> int:
+        return int(np.count_nonzero(self.is_event))
+
+    @property
+    def has_costs(self) -> bool:
+        return self.event_cost is not None
+
+    @property
+    def exact(self) -> bool:
+        """True when a replicate is distributed exactly as row (or case) resampling."""
+        integer = self._event_units.integer and self._nonevent_units.integer
+        if self.weight_kind == "sampling":
+            return self.sampling_method == "rows"
+        return integer and self.cost_exact
+
+    def column(self, threshold: float) -> int:
+        """Column of ``threshold`` in a cumulative replicate matrix (0: "flag none").
+
+        Raises InputError when the threshold's counts are not a cell boundary
+        (pass it to :func:`event_cells` in ``thresholds``).
+        """
+        k = self.curve.index_at(threshold)
+        if k == 0:
+            return 0
+        j = int(np.searchsorted(self.index, k))
+        if j >= self.index.shape[0] or self.index[j] != k:
+            raise InputError("threshold", f"{threshold!r} does not sit on a cell boundary; pass it to "
+                             "event_cells(..., thresholds=[...]) so its counts are kept")
+        return j + 1
+
+    def column_of_index(self, k: int) -> int:
+        """Column of curve point ``k`` (which must be a boundary); 0 for "flag none"."""
+        if k == 0:
+            return 0
+        j = int(np.searchsorted(self.index, k))
+        if j >= self.index.shape[0] or self.index[j] != k:
+            raise InputError("index", f"curve point {k} is not a cell boundary")
+        return j + 1
+
+    def cell_of(self, scores) -> np.ndarray:
+        """Cell index of each score (scores must be the source data's own)."""
+        asc = self.curve.distinct_scores
+        s = np.asarray(scores, dtype=np.float64)
+        j = np.searchsorted(asc, s, side="left")
+        d = asc.shape[0]
+        if np.any(j >= d) or np.any(asc[np.minimum(j, d - 1)] != s):
+            raise InputError("y_score", "holds scores that are not on the curve (use the data's own cells)")
+        return _row_cells(self.curve, self.index, s)
+
+    def to_curve(self, events=None, non_events=None, *, event_cost=None, events_sq=None,
+                 non_events_sq=None, drop_empty: bool = True) -> Curve:
+        """A Curve whose points are the cell boundaries, from (replicate) cell counts.
+
+        With no arguments this is the source data's curve at its boundaries:
+        the same counts at every event point, the same ROC AUC and average
+        precision. Cells with no case are dropped (they are not points of a
+        row curve) unless ``drop_empty=False``.
+        """
+        e = self.events if events is None else np.asarray(events, dtype=np.float64)
+        n = self.non_events if non_events is None else np.asarray(non_events, dtype=np.float64)
+        if events is None:
+            event_cost, events_sq, non_events_sq = self.event_cost, self.events_sq, self.non_events_sq
+        keep = (e + n > 0) if drop_empty else np.ones(e.shape[0], dtype=bool)
+
+        def k(a):
+            return None if a is None else np.asarray(a, dtype=np.float64)[keep]
+
+        return Curve.from_counts(self.thresholds[keep], e[keep], n[keep],
+                                 higher_is_riskier=self.higher_is_riskier, event_cost=k(event_cost),
+                                 events_sq=k(events_sq), non_events_sq=k(non_events_sq))
+
+    def describe(self) -> str:
+        """One sentence on how this data is resampled (for the record and memo)."""
+        parts = [f"{self.n_cells:,} cells ({self.n_event_cells:,} event scores)"]
+        if self.weight_kind == "sampling":
+            if self.sampling_method == "rows":
+                parts.append("sampling weights: rows resampled with their weights (exact, O(rows) "
+                             "per replicate)")
+            else:
+                parts.append("sampling weights: each cell drawn as W^2/Q units of weight Q/W "
+                             "(carries the sums of squared weights; matches each cell's mean and "
+                             "variance, approximate)")
+        elif self.weight_kind == "frequency":
+            parts.append("frequency weights used as case counts"
+                         + ("" if self._event_units.integer and self._nonevent_units.integer
+                            else " (non-integer: scaled masses, approximate)"))
+        if self.has_costs:
+            parts.append("per-case miss costs: events resampled as rows" if self._event_units.cell
+                         is not None else
+                         "per-case miss costs: each cell's events carry its mean cost"
+                         + ("" if self.cost_exact else " (approximate where a cell holds "
+                                                       "several events)"))
+        return "; ".join(parts)
+
+
+def _boundaries(curve: Curve, extra_points) -> np.ndarray:
+    """Point indices (>= 1) that end a cell: each event point, the point just
+    before it, every extra point and the last point."""
+    d = curve.n_points - 1
+    ev = np.flatnonzero(curve.event_point_mask)
+    ev = ev[ev > 0]
+    parts = [ev, ev - 1, np.asarray(extra_points, dtype=np.int64), [d]]
+    b = np.unique(np.concatenate([np.asarray(p, dtype=np.int64) for p in parts]))
+    return b[b >= 1]
+
+
+def _row_cells(curve: Curve, boundaries: np.ndarray, scores) -> np.ndarray:
+    asc = curve.distinct_scores
+    d = asc.shape[0]
+    j = np.searchsorted(asc, np.asarray(scores, dtype=np.float64), side="left")
+    point = (d - j) if curve.higher_is_riskier else (j + 1)
+    return np.searchsorted(boundaries, point, side="left")
+
+
+def _diff0(cum, idx):
+    """Cell sums from a cumulative array (``cum[0] == 0``) read at boundaries ``idx``."""
+    v = np.asarray(cum, dtype=np.float64)[idx]
+    out = np.empty_like(v)
+    out[0] = v[0]
+    out[1:] = np.diff(v)
+    return out
+
+
+def event_cells(data, *, thresholds=(), weight_kind: str | None = None,
+                sampling_weights: str = "rows") -> EventCells:
+    """Compress a Curve (or a Dataset's curve) to its event cells (see the module docstring).
+
+    Parameters
+    ----------
+    data : Curve or Dataset
+    thresholds : sequence of float
+        Thresholds (score units) whose counts must be kept although they
+        are not event scores, e.g. a pre-specified operating point.
+    weight_kind : {"frequency", "sampling"}, optional
+        For a Curve only; a weighted Curve carrying squared-weight sums counts
+        as sampling-weighted (as in :func:`core.choose.choose`).
+    sampling_weights : {"rows", "moments"}
+        With sampling weights and the rows at hand (a row Dataset): resample
+        rows (exact, slow) or carry the squared weights (fast, approximate).
+        A Curve always uses "moments".
+
+    Returns
+    -------
+    EventCells
+    """
+    from core.dataset import Dataset
+
+    ds = data if isinstance(data, Dataset) else None
+    curve = data.curve() if ds is not None else data
+    if not isinstance(curve, Curve):
+        raise TypeError(f"expected a Curve or a Dataset, got {type(data).__name__}")
+    if ds is not None:
+        wk = ds.weight_kind if ds.kind == "rows" else (
+            "sampling" if ds.events_sq is not None else ("frequency" if curve.weighted else None))
+        if weight_kind is not None and ds.kind == "rows" and weight_kind != wk:
+            raise InputError("weight_kind", f"{weight_kind!r} differs from the dataset's {wk!r}")
+    else:
+        wk = weight_kind if weight_kind is not None else (
+            "sampling" if curve.tp_sq is not None else ("frequency" if curve.weighted else None))
+    if wk is not None and wk not in ("frequency", "sampling"):
+        raise InputError("weight_kind", f"must be 'frequency' or 'sampling', got {wk!r}")
+    if sampling_weights not in _SAMPLING_METHODS:
+        raise InputError("sampling_weights", f"must be one of {', '.join(_SAMPLING_METHODS)}, "
+                         f"got {sampling_weights!r}")
+    if wk == "frequency" and not curve.weighted:
+        wk = None  # integer counts with no weights: nothing to say
+
+    extra = []
+    for t in thresholds:
+        t = float(t)
+        if np.isnan(t):
+            raise InputError("thresholds", "holds NaN")
+        extra.append(curve.index_at(t))
+    b = _boundaries(curve, extra)
+    C = b.shape[0]
+    ev_cells = _diff0(curve.tp, b)
+    ne_cells = _diff0(curve.fp, b)
+    is_event = curve.event_point_mask[b] & (ev_cells > 0)
+    ev_sq = ne_sq = None
+    if curve.tp_sq is not None:
+        ev_sq = _diff0(curve.tp_sq, b)
+        ne_sq = _diff0(curve.fp_sq, b)
+    cost = None if curve.event_cost_flagged is None else _diff0(curve.event_cost_flagged, b)
+
+    rows = ds is not None and ds.kind == "rows"
+    method = None
+    if wk == "sampling":
+        method = sampling_weights if rows else "moments"
+        if method == "moments" and ev_sq is None:
+            raise InputError("weight_kind", "sampling weights need the sums of squared weights "
+                             "(a count table's events_sq / non_events_sq)")
+    cost_exact = True
+    ev_units = ne_units = None
+    row_cell = None
+    if rows and (method == "rows" or cost is not None):
+        # cell of every row: its curve point, then the first boundary at or after it
+        row_cell = _row_cells(curve, b, ds.y_score)
+    w_rows = None if (not rows or ds.sample_weight is None) else ds.sample_weight
+
+    if method == "rows":
+        y = ds.y_true
+        for cls_mask, is_ev in ((y, True), (~y, False)):
+            idx = np.flatnonzero(cls_mask)
+            wi = w_rows[idx]
+            uc = None
+            if is_ev and cost is not None:
+                uc = wi * ds.case_cost[idx]
+            u = _Units(np.ones(idx.shape[0]), C, cell=row_cell[idx], unit_weight=wi, unit_cost=uc,
+                       track_sq=True)
+            if is_ev:
+                ev_units = u
+            else:
+                ne_units = u
+    elif method == "moments":
+        with np.errstate(invalid="ignore", divide="ignore"):
+            for cells_w, cells_q, is_ev in ((ev_cells, ev_sq, True), (ne_cells, ne_sq, False)):
+                ok = (cells_w > 0) & (cells_q > 0)
+                neff = np.where(ok, cells_w ** 2 / np.where(ok, cells_q, 1.0), 0.0)
+                unit = np.where(ok, cells_q / np.where(ok, cells_w, 1.0), 0.0)
+                uc = None
+                if is_ev and cost is not None:
+                    uc = np.where(ok, cost / np.where(ok, cells_w, 1.0), 0.0) * unit
+                u = _Units(neff, C, unit_weight=unit, unit_cost=uc, track_sq=True)
+                if is_ev:
+                    ev_units = u
+                else:
+                    ne_units = u
+        cost_exact = False
+    else:
+        if cost is not None and rows:
+            idx = np.flatnonzero(ds.y_true)
+            mass = np.ones(idx.shape[0]) if w_rows is None else w_rows[idx]
+            ev_units = _Units(mass, C, cell=row_cell[idx], unit_cost=ds.case_cost[idx])
+        else:
+            uc = None
+            if cost is not None:
+                with np.errstate(invalid="ignore", divide="ignore"):
+                    uc = np.where(ev_cells > 0, cost / np.where(ev_cells > 0, ev_cells, 1.0), 0.0)
+                cost_exact = bool(np.all(ev_cells <= 1))
+            ev_units = _Units(ev_cells, C, unit_cost=uc)
+        ne_units = _Units(ne_cells, C)
+
+    def ro(a):
+        if a is None:
+            return None
+        a = np.ascontiguousarray(a)
+        a.setflags(write=False)
+        return a
+
+    return EventCells(
+        thresholds=ro(curve.thresholds[b]), index=ro(b), events=ro(ev_cells), non_events=ro(ne_cells),
+        is_event=ro(is_event), higher_is_riskier=curve.higher_is_riskier, curve=curve,
+        weight_kind=wk, sampling_method=method, events_sq=ro(ev_sq), non_events_sq=ro(ne_sq),
+        event_cost=ro(cost), cost_exact=cost_exact, _event_units=ev_units, _nonevent_units=ne_units,
+    )
+
+
+# --------------------------------------------------------------------------- replicates
+
+@dataclass(frozen=True, eq=False)
+class ReplicateChunk:
+    """Replicates ``start..stop-1``: cell counts, one row per replicate.
+
+    ``events`` / ``non_events`` are (R, C) replicate cell weights;
+    ``events_sq`` / ``non_events_sq`` (R, C) squared-weight sums (sampling
+    weights only); ``event_cost`` (R, C) the replicate cells' miss cost.
+    """
+
+    start: int
+    stop: int
+    events: np.ndarray
+    non_events: np.ndarray
+    events_sq: np.ndarray | None = None
+    non_events_sq: np.ndarray | None = None
+    event_cost: np.ndarray | None = None
+
+    @property
+    def n(self) -> int:
+        return self.stop - self.start
+
+    def cumulative(self):
+        """``(tp, fp)``: (R, C + 1) flagged weight at "flag none" and every boundary."""
+        return _cum0(self.events), _cum0(self.non_events)
+
+    def cumulative_sq(self):
+        if self.events_sq is None:
+            return None, None
+        return _cum0(self.events_sq), _cum0(self.non_events_sq)
+
+    def cumulative_cost(self):
+        return None if self.event_cost is None else _cum0(self.event_cost)
+
+
+def _cum0(a):
+    out = np.zeros((a.shape[0], a.shape[1] + 1))
+    np.cumsum(a, axis=1, out=out[:, 1:])
+    return out
+
+
+def _default_chunk(n_cells: int) -> int:
+    return int(np.clip((1 << 19) // max(n_cells, 1), 1, 256))
+
+
+def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
+                     design: str = "cohort", *, chunk: int | None = None, start: int = 0,
+                     progress=None):
+    """Yield :class:`ReplicateChunk` s of replicate cell counts, ``chunk`` replicates at a time.
+
+    Replicate r uses ``numpy.random.default_rng([seed, r])`` alone, so the
+    replicates do not depend on ``chunk``. ``progress(done, total)`` is called
+    after each chunk. See the module docstring for the draws and their cost.
+    """
+    _check_design(design)
+    n_rep = int(n_replicates)
+    if n_rep < 1:
+        raise InputError("n_replicates", f"must be at least 1, got {n_replicates!r}")
+    C = cells.n_cells
+    size = _default_chunk(C) if chunk is None else int(chunk)
+    if size < 1:
+        raise InputError("chunk", f"must be at least 1, got {chunk!r}")
+    eu, nu = cells._event_units, cells._nonevent_units
+    sq = eu.track_sq
+    cost = eu.unit_cost is not None
+    total_units = eu.n_units + nu.n_units
+    mass_total = eu.total_mass + nu.total_mass
+    p_event = eu.total_mass / mass_total
+    stop_all = start + n_rep
+    for lo in range(start, stop_all, size):
+        hi = min(lo + size, stop_all)
+        R = hi - lo
+        E = np.empty((R, C))
+        N = np.empty((R, C))
+        Esq = np.empty((R, C)) if sq else None
+        Nsq = np.empty((R, C)) if sq else None
+        K = np.empty((R, C)) if cost else None
+        for i, g in enumerate(replicate_seeds(seed, lo, hi)):
+            if design == "cohort":
+                m_ev = int(g.binomial(total_units, p_event))
+                m_ne = total_units - m_ev
+            else:
+                m_ev, m_ne = eu.n_units, nu.n_units
+            w, s2, c = eu.to_cells(eu.draw(g, m_ev))
+            E[i] = w
+            if sq:
+                Esq[i] = s2
+            if cost:
+                K[i] = c
+            w, s2, _ = nu.to_cells(nu.draw(g, m_ne))
+            N[i] = w
+            if sq:
+                Nsq[i] = s2
+        yield ReplicateChunk(start=lo, stop=hi, events=E, non_events=N, events_sq=Esq,
+                             non_events_sq=Nsq, event_cost=K)
+        if progress is not None:
+            progress(hi - start, n_rep)
+
+
+# --------------------------------------------------------------------------- statistics
+
+def _totals(tp, fp):
+    return tp[:, -1], fp[:, -1]
+
+
+def roc_auc(tp, fp):
+    """ROC AUC of each replicate row: trapezoids through (FP, TP) at every boundary.
+
+    ``tp``, ``fp``: (R, C + 1) cumulative counts with "flag none" first.
+    ``sum_i (FP_i - FP_{i-1}) (TP_i + TP_{i-1}) / (2 P N)``; NaN when a
+    replicate has no events or no non-events. Equals
+    :attr:`core.curve.Curve.roc_auc` of the replicate's row curve.
+    """
+    P, N = _totals(tp, fp)
+    area = np.einsum("ij,ij->i", np.diff(fp, axis=1), tp[:, 1:] + tp[:, :-1]) / 2.0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return area / (P * N)
+
+
+def average_precision(tp, fp):
+    """Average precision of each replicate row: ``sum_i (R_i - R_{i-1}) P_i``.
+
+    Only boundaries where recall moves contribute (as scikit-learn's
+    ``average_precision_score``); NaN without events.
+    """
+    P, _ = _totals(tp, fp)
+    dtp = np.diff(tp, axis=1)
+    flagged = tp[:, 1:] + fp[:, 1:]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        prec = np.where(dtp > 0, tp[:, 1:] / np.where(flagged > 0, flagged, 1.0), 0.0)
+        return np.einsum("ij,ij->i", dtp, prec) / P
+
+
+def counts_at(tp, fp, columns):
+    """``(tp, fp, fn, tn)`` of each replicate at the given boundary ``columns``: (R, k) each."""
+    cols = np.asarray(columns, dtype=np.int64)
+    P, N = _totals(tp, fp)
+    t = tp[:, cols]
+    f = fp[:, cols]
+    return t, f, P[:, None] - t, N[:, None] - f
+
+
+def _rowwise_search(values, queries, side):
+    """``searchsorted`` of ``queries`` (G,) in every row of ``values`` (R, M), rows
+    non-decreasing with values in [0, 1]: offsets of 2 per row make one sorted array."""
+    R, M = values.shape
+    off = 2.0 * np.arange(R)[:, None]
+    flat = (values + off).ravel()
+    q = (np.asarray(queries, dtype=np.float64)[None, :] + off)
+    pos = np.searchsorted(flat, q.ravel(), side=side).reshape(R, -1)
+    return pos - (np.arange(R) * M)[:, None]
+
+
+def precision_at_recall(tp, fp, recall_grid=DEFAULT_RECALL_GRID):
+    """Precision of each replicate at the strictest boundary reaching each recall level.
+
+    For recall level r the point is the first (strictest) with
+    ``TP >= r P``: the threshold a "recall at least r" rule would pick. (R, G).
+    """
+    P, _ = _totals(tp, fp)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rec = tp / P[:, None]
+    rec = np.where(np.isfinite(rec), rec, 0.0)
+    r = np.asarray(recall_grid, dtype=np.float64)
+    # tolerate float rounding of TP / P against the grid
+    pos = _rowwise_search(rec, r - 1e-12, "left")
+    pos = np.minimum(pos, tp.shape[1] - 1)
+    rows = np.arange(tp.shape[0])[:, None]
+    t = tp[rows, pos]
+    f = fp[rows, pos]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = t / (t + f)
+    out[~(P > 0)] = np.nan
+    return out
+
+
+def tpr_at_fpr(tp, fp, fpr_grid=DEFAULT_FPR_GRID):
+    """TPR of each replicate's ROC curve at each FPR level (linear between boundaries).
+
+    Between two boundaries the row curve is a straight segment (horizontal in
+    a gap cell, the ties' diagonal in a tie cell); at a vertical step the top
+    is taken. (R, G).
+    """
+    P, N = _totals(tp, fp)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tpr = tp / P[:, None]
+        fpr = fp / N[:, None]
+    bad = ~((P > 0) & (N > 0))
+    tpr = np.where(bad[:, None], 0.0, tpr)
+    fpr = np.where(bad[:, None], 0.0, fpr)
+    f = np.asarray(fpr_grid, dtype=np.float64)
+    M = tp.shape[1]
+    i = _rowwise_search(fpr, f, "right") - 1
+    i = np.clip(i, 0, M - 1)
+    j = np.minimum(i + 1, M - 1)
+    rows = np.arange(tp.shape[0])[:, None]
+    x0, x1 = fpr[rows, i], fpr[rows, j]
+    y0, y1 = tpr[rows, i], tpr[rows, j]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope = np.where(x1 > x0, (y1 - y0) / np.where(x1 > x0, x1 - x0, 1.0), 0.0)
+    out = y0 + (f[None, :] - x0) * slope
+    out = np.minimum(out, 1.0)
+    out[bad] = np.nan
+    return out
+
+
+def percentile_interval(values, confidence: float = 0.95, axis: int = 0):
+    """Percentile bootstrap interval ``(low, high)`` over the defined (non-NaN) replicates.
+
+    Empirical quantiles at (1 - c) / 2 and (1 + c) / 2 with linear
+    interpolation (``numpy.nanquantile``); NaN where no replicate is defined.
+    Reference: Efron & Tibshirani, *An Introduction to the Bootstrap*, 1993.
+    """
+    c = float(confidence)
+    if not 0.0 < c < 1.0:
+        raise InputError("confidence", f"must lie strictly between 0 and 1, got {confidence!r}")
+    v = np.asarray(values, dtype=np.float64)
+    a = (1.0 - c) / 2.0
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN slices give NaN, said above
+        q = np.nanquantile(v, [a, 1.0 - a], axis=axis)
+    if q.ndim == 1:
+        return float(q[0]), float(q[1])
+    return q[0], q[1]
+
+
+# --------------------------------------------------------------------------- one pass
+
+@dataclass(frozen=True, eq=False)
+class BootstrapResult:
+    """Replicate values of the standard statistics (one pass over the replicates).
+
+    Arrays have one row per replicate. ``at`` maps each requested threshold
+    to a dict of (R,) arrays: ``tp``, ``fp``, ``fn``, ``tn`` and, when asked,
+    ``cost`` (expected cost per case at the prevalence), ``flagged_per_period``
+    and ``prevalence`` (the prevalence each replicate was judged at).
+    """
+
+    cells: EventCells
+    n_replicates: int
+    seed: int
+    design: str
+    roc_auc: np.ndarray
+    average_precision: np.ndarray
+    recall_grid: np.ndarray
+    precision_band: np.ndarray
+    fpr_grid: np.ndarray
+    tpr_band: np.ndarray
+    thresholds: tuple[float, ...]
+    at: dict
+    events: np.ndarray
+    non_events: np.ndarray
+    prevalence: float | None
+    costs: dict | None = None
+    cases_per_period: float | None = None
+    notes: tuple[str, ...] = ()
+
+    def band(self, which: str, confidence: float = 0.95):
+        """``(grid, low, high)`` percentile band: ``"pr"`` (precision at recall) or ``"roc"``."""
+        if which == "pr":
+            lo, hi = percentile_interval(self.precision_band, confidence)
+            return self.recall_grid, lo, hi
+        if which == "roc":
+            lo, hi = percentile_interval(self.tpr_band, confidence)
+            return self.fpr_grid, lo, hi
+        raise ValueError(f"which must be 'pr' or 'roc', got {which!r}")
+
+    def metric_at(self, threshold: float, metric: str, *, prevalence: float | None | str = "same"):
+        """Replicate values of a metric at one of the requested thresholds.
+
+        Metrics: those of :func:`core.metrics.confusion_metrics`, plus
+        ``cost`` and ``flagged_per_period`` when they were computed.
+        ``prevalence="same"`` judges prevalence-dependent metrics at the
+        prevalence the pass used (each replicate's own validation prevalence
+        when none was given); None at the replicate's validation mix; a number
+        at that prevalence.
+        """
+        from core.metrics import confusion_metrics
+
+        d = self.at[float(threshold)]
+        if metric in ("cost", "flagged_per_period"):
+            if metric not in d:
+                raise KeyError(f"{metric} was not computed (give costs / cases_per_period)")
+            return d[metric]
+        if prevalence == "same":
+            prevalence = self.prevalence
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if prevalence is None:
+                return confusion_metrics(d["tp"], d["fp"], d["fn"], d["tn"])[metric]
+            return confusion_metrics(d["tp"], d["fp"], d["fn"], d["tn"],
+                                     prevalence=float(prevalence))[metric]
+
+    def describe(self) -> str:
+        return (f"exact cell bootstrap, {self.n_replicates:,} replicates, design {self.design}, "
+                f"seed {self.seed}; {self.cells.describe()}")
+
+
+def _cost_per_case(tp, fp, P, N, cost_cum, cols, costs, pi):
+    """Expected cost per case (R, k) at boundary ``cols`` (see core.costs.expected_cost)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        tpr = tp / P[:, None]
+        fpr = fp / N[:, None]
+        if costs.get("false_negative") is None:
+            tot = cost_cum[:, -1][:, None]
+            miss = (tot - cost_cum[:, cols]) / P[:, None]
+        else:
+            miss = float(costs["false_negative"]) * (1.0 - tpr)
+        return (pi * miss + float(costs["false_positive"]) * (1.0 - pi) * fpr
+                + float(costs.get("true_positive", 0.0)) * pi * tpr
+                + float(costs.get("true_negative", 0.0)) * (1.0 - pi) * (1.0 - fpr))
+
+
+def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
+              design: str = "cohort", thresholds=(), prevalence: float | None = None,
+              costs: dict | None = None, cases_per_period: float | None = None,
+              recall_grid=DEFAULT_RECALL_GRID, fpr_grid=DEFAULT_FPR_GRID, chunk: int | None = None,
+              progress=None, collectors=(), cells: EventCells | None = None,
+              sampling_weights: str = "rows") -> BootstrapResult:
+    """The exact bootstrap of the curve's statistics in one pass.
+
+    Parameters
+    ----------
+    data : Curve or Dataset
+    n_replicates, seed, design, chunk, progress
+        See :func:`bootstrap_counts`.
+    thresholds : sequence of float
+        Operating points whose counts (and cost, flags per period) are kept
+        per replicate.
+    prevalence : float, optional
+        Deployment prevalence for cost and flags per period; None judges each
+        replicate at its own validation prevalence (with ``"case-control"``
+        that is the fixed sample prevalence).
+    costs : dict, optional
+        ``false_positive``, ``false_negative`` (None: per-case miss costs),
+        ``true_positive``, ``true_negative``: expected cost per case.
+    cases_per_period : float, optional
+        Cases per period: flagged per period = flag rate at the prevalence x it.
+    recall_grid, fpr_grid : array-like
+        Levels for the PR and ROC bands.
+    collectors : sequence
+        Objects with ``update(chunk, tp, fp)`` called on every chunk (e.g.
+        the threshold-stability collector), so one pass serves them all.
+    cells : EventCells, optional
+        Reuse cells already built from ``data`` (they must keep ``thresholds``).
+
+    Returns
+    -------
+    BootstrapResult
+    """
+    _check_design(design)
+    ths = tuple(float(t) for t in thresholds)
+    if cells is None:
+        cells = event_cells(data, thresholds=ths, sampling_weights=sampling_weights)
+    cols = [cells.column(t) for t in ths]
+    if costs is not None and costs.get("false_negative") is None and not cells.has_costs:
+        raise InputError("costs", "false_negative is missing and the data hold no per-case miss costs")
+    if prevalence is not None and not 0.0 < float(prevalence) < 1.0:
+        raise InputError("prevalence", f"must lie strictly between 0 and 1, got {prevalence!r}")
+    n_rep = int(n_replicates)
+    rg = np.asarray(recall_grid, dtype=np.float64)
+    fg = np.asarray(fpr_grid, dtype=np.float64)
+    auc = np.empty(n_rep)
+    ap = np.empty(n_rep)
+    pb = np.empty((n_rep, rg.shape[0]))
+    tb = np.empty((n_rep, fg.shape[0]))
+    Ps = np.empty(n_rep)
+    Ns = np.empty(n_rep)
+    k = len(cols)
+    at_tp, at_fp = np.empty((n_rep, k)), np.empty((n_rep, k))
+    at_cost = np.empty((n_rep, k)) if costs is not None else None
+    at_pi = np.empty(n_rep)
+    for ch in bootstrap_counts(cells, n_rep, seed, design, chunk=chunk, progress=progress):
+        tp, fp = ch.cumulative()
+        s = slice(ch.start, ch.stop)
+        P, N = _totals(tp, fp)
+        Ps[s], Ns[s] = P, N
+        auc[s] = roc_auc(tp, fp)
+        ap[s] = average_precision(tp, fp)
+        pb[s] = precision_at_recall(tp, fp, rg)
+        tb[s] = tpr_at_fpr(tp, fp, fg)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            pi = np.full(ch.n, float(prevalence)) if prevalence is not None else P / (P + N)
+        at_pi[s] = pi
+        if k:
+            t, f, _, _ = counts_at(tp, fp, cols)
+            at_tp[s], at_fp[s] = t, f
+            if at_cost is not None:
+                at_cost[s] = _cost_per_case(t, f, P, N, ch.cumulative_cost(), cols, costs, pi[:, None])
+        for c in collectors:
+            c.update(ch, tp, fp)
+    at = {}
+    for j, t in enumerate(ths):
+        d = {"tp": at_tp[:, j], "fp": at_fp[:, j], "fn": Ps - at_tp[:, j], "tn": Ns - at_fp[:, j],
+             "prevalence": at_pi}
+        if at_cost is not None:
+            d["cost"] = at_cost[:, j]
+        if cases_per_period is not None:
+            with np.errstate(invalid="ignore", divide="ignore"):
+                tpr = d["tp"] / Ps
+                fpr = d["fp"] / Ns
+            d["flagged_per_period"] = (at_pi * tpr + (1.0 - at_pi) * fpr) * float(cases_per_period)
+        at[t] = d
+    notes = []
+    if not cells.exact:
+        notes.append("approximate: " + cells.describe())
+    return BootstrapResult(
+        cells=cells, n_replicates=n_rep, seed=int(seed), design=design, roc_auc=auc,
+        average_precision=ap, recall_grid=rg, precision_band=pb, fpr_grid=fg, tpr_band=tb,
+        thresholds=ths, at=at, events=Ps, non_events=Ns,
+        prevalence=None if prevalence is None else float(prevalence),
+        costs=None if costs is None else dict(costs),
+        cases_per_period=None if cases_per_period is None else float(cases_per_period),
+        notes=tuple(notes))
