@@ -1,0 +1,418 @@
+"""Threshold stability: would the policy pick the same point on another sample?
+
+Every bootstrap replicate (see :mod:`core.bootstrap`) re-runs the policy's
+choice -- the same objective, rules and confidence as
+:func:`core.choose.choose` -- and the spread of the chosen thresholds says how
+firmly the data pin the operating point down:
+
+* the 95 % range of the chosen thresholds (empirical 2.5 % and 97.5 %
+  quantiles of the chosen point, so both ends are real thresholds);
+* the share of replicates choosing the same point, and the share choosing it
+  or one of its two neighbouring event scores ("within one event score");
+* the spread of recall, precision, flag rate and expected cost at the chosen
+  thresholds, both as each replicate sees them (apparent) and on the full
+  data (what that threshold actually gives here; Harrell's optimism in
+  :mod:`core.optimism` is the mean difference of the two).
+
+The choice is made for all replicates of a chunk at once, vectorised over
+(replicates x cell boundaries), with exactly the formulas of
+:func:`core.choose.choose` (the test suite checks the identity against
+``choose()`` on each replicate's own curve): candidates are "flag none" and
+the boundaries whose tie cell holds an event in the replicate (its event
+points); objective and rules are judged at the deployment prevalence (the
+policy's, or each replicate's own validation prevalence when the policy
+gives none); ties go to fewer flags with relative tolerance 1e-12. What is
+held at its full-data value rather than resampled: a capacity-quantile rule
+(flags per period from score times: its limit on the threshold is the one
+found on the full data) and cases per period taken from the data.
+
+Cost: O(cells) per replicate on top of the draws.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from core import intervals as _iv
+from core.bootstrap import (DEFAULT_REPLICATES, EventCells, _check_design, bootstrap_counts,
+                            event_cells, percentile_interval)
+from core.costs import TIE_RTOL
+from core.policy import Policy, resolve_policy
+
+__all__ = ["ReplicateChooser", "StabilityCollector", "ThresholdStability", "threshold_stability"]
+
+
+class ReplicateChooser:
+    """The policy's choice on many replicates at once (the formulas of ``choose()``).
+
+    Built once per data and policy: the policy is resolved on the full data
+    (:func:`core.policy.resolve_policy`); what a replicate cannot recompute
+    (a capacity-quantile limit, data-derived cases per period) is taken from
+    there.
+    """
+
+    def __init__(self, cells: EventCells, policy: Policy, data=None):
+        if not isinstance(policy, Policy):
+            raise TypeError(f"policy must be a Policy, got {type(policy).__name__}")
+        self.cells = cells
+        source = data if data is not None else cells.curve
+        rp = resolve_policy(policy, source)
+        self.rp = rp
+        self.policy = policy
+        self.pi_fixed = rp.prevalence if rp.sources.get("deployment.prevalence") == "file" else None
+        self.sampling = cells.weight_kind == "sampling" and cells.events_sq is not None
+        # candidate columns: flag none and the tie cells (a replicate's event points are among them)
+        self.cand_cols = np.concatenate([[0], np.flatnonzero(cells.is_event) + 1])
+        self.cap_ok = None
+        self.notes: list[str] = []
+        if "max_flagged_per_period" in rp.rules and rp.capacity_quantile is not None:
+            from core.choose import _Analysis  # the capacity limit exactly as choose() finds it
+
+            a = _Analysis(source, policy)
+            a.search()
+            met = a.rules_all["max_flagged_per_period"]["met"]
+            cols = np.concatenate([[0], cells.index])
+            self.cap_ok = np.asarray(met, dtype=bool)[cols][self.cand_cols]
+            self.notes.append("the capacity-quantile rule (flags per period from score times) is held "
+                              "at its full-data limit on the threshold in every replicate")
+        if rp.sources.get("deployment.cases_per_period") == "data":
+            self.notes.append("cases per period are held at the full-data value")
+
+    # ------------------------------------------------------------------ the choice
+    def choose(self, tp, fp, *, cost_cum=None, sq=None, events=None):
+        """Chosen column per replicate row (0: "flag none"; -1: no point meets the rules).
+
+        ``tp``, ``fp``: (R, C + 1) cumulative counts with "flag none" first;
+        ``events``: (R, C) replicate event cell weights (for the candidates);
+        ``cost_cum``: (R, C + 1) cumulative miss cost (per-case costs);
+        ``sq``: ``(tp_sq, fp_sq)`` cumulative squared weights (sampling weights).
+        """
+        cc = self.cand_cols
+        rp = self.rp
+        R = tp.shape[0]
+        P = tp[:, -1][:, None]
+        N = fp[:, -1][:, None]
+        t = tp[:, cc]
+        f = fp[:, cc]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            tpr = t / P
+            fpr = f / N
+            pi = (np.full((R, 1), self.pi_fixed) if self.pi_fixed is not None else P / (P + N))
+        tpp, fpp = pi * tpr, (1.0 - pi) * fpr
+        cand = np.ones(t.shape, dtype=bool)
+        if events is not None:
+            cand[:, 1:] = events[:, cc[1:] - 1] > 0
+        if self.sampling and sq is not None:
+            n1 = _iv.effective_size_from_sums(P, sq[0][:, -1][:, None])
+            n0 = _iv.effective_size_from_sums(N, sq[1][:, -1][:, None])
+        else:
+            n1, n0 = P, N
+        v = self._objective(tpr, fpr, tpp, fpp, pi, P, cost_cum)
+        ok = cand & self._rules_met(t, f, P, N, tpr, fpr, tpp, fpp, pi, n1, n0)
+        vm = np.where(ok, v, -np.inf)
+        best = vm.max(axis=1, keepdims=True)
+        with np.errstate(invalid="ignore"):
+            tol = TIE_RTOL * np.abs(best)
+            hit = ok & (v >= best - tol)
+        any_ok = ok.any(axis=1)
+        first = np.argmax(hit, axis=1)
+        out = np.where(any_ok, cc[first], -1)
+        return out
+
+    def _objective(self, tpr, fpr, tpp, fpp, pi, P, cost_cum):
+        rp = self.rp
+        kind = rp.objective
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if kind == "min_cost":
+                v = -self.cost(tpr, fpr, pi, P, cost_cum)
+            elif kind == "max_fbeta":
+                b2 = rp.beta ** 2
+                v = (1 + b2) * tpp / ((1 + b2) * tpp + b2 * (pi - tpp) + fpp)
+            elif kind == "max_net_benefit":
+                pt = rp.threshold_probability
+                v = tpp - fpp * pt / (1.0 - pt)
+            elif kind == "max_youden":
+                v = tpr - fpr
+            elif kind == "max_recall":
+                v = tpr + 0.0
+            elif kind == "max_precision":
+                v = np.where(tpp + fpp > 0, tpp / (tpp + fpp), 0.0)
+            else:  # pragma: no cover - validated in the policy
+                raise AssertionError(kind)
+        v = np.asarray(v, dtype=np.float64)
+        return np.where(np.isnan(v), -np.inf, v)
+
+    def cost(self, tpr, fpr, pi, P, cost_cum, cols=None):
+        """Expected cost per case (NaN without costs), as ``choose()`` computes it."""
+        rp = self.rp
+        if not rp.costs_given:
+            return np.full(np.shape(tpr), np.nan)
+        if rp.case_dependent_costs:
+            cc = self.cand_cols if cols is None else cols
+            miss = (cost_cum[:, -1][:, None] - cost_cum[:, cc]) / P
+        else:
+            miss = rp.false_negative * (1.0 - tpr)
+        return (pi * miss + rp.false_positive * (1.0 - pi) * fpr
+                + rp.true_positive * pi * tpr + rp.true_negative * (1.0 - pi) * (1.0 - fpr))
+
+    def _rules_met(self, tp, fp, P, N, tpr, fpr, tpp, fpp, pi, n1, n0):
+        rp = self.rp
+        conf = rp.confidence
+        fn, tn = P - tp, N - fp
+        met_all = np.ones(tp.shape, dtype=bool)
+        shape = tp.shape
+        for name, lim in rp.rules.items():
+            bound = None
+            lower_rule = name.startswith("min_")
+            with np.errstate(invalid="ignore", divide="ignore"):
+                if name == "min_recall":
+                    value = tpr
+                    if conf is not None:
+                        bound = _iv.wilson_interval(tpr * n1, np.broadcast_to(n1, shape), conf,
+                                                    sided="lower")[0]
+                elif name == "min_specificity":
+                    value = 1.0 - fpr
+                    if conf is not None:
+                        bound = _iv.wilson_interval((1.0 - fpr) * n0, np.broadcast_to(n0, shape),
+                                                    conf, sided="lower")[0]
+                elif name == "min_precision":
+                    value = tpp / (tpp + fpp)
+                    if conf is not None:
+                        bound = _iv.ppv_logit_interval(tp, fn, fp, tn, pi, conf, sided="lower",
+                                                       n_events=n1, n_nonevents=n0)[0]
+                        bound = np.where(tp + fp > 0, bound, np.nan)
+                elif name == "max_flag_rate":
+                    value = tpp + fpp
+                    if conf is not None:
+                        bound = _iv.flag_rate_interval(tp, fn, fp, tn, pi, conf, sided="upper",
+                                                       n_events=n1, n_nonevents=n0)[1]
+                elif name == "max_flagged_per_period":
+                    if self.cap_ok is not None:
+                        met_all &= self.cap_ok[None, :]
+                        continue
+                    value = (tpp + fpp) * rp.cases_per_period
+                    if conf is not None:
+                        fr_hi = _iv.flag_rate_interval(tp, fn, fp, tn, pi, conf, sided="upper",
+                                                       n_events=n1, n_nonevents=n0)[1]
+                        bound = fr_hi * rp.cases_per_period
+                else:  # pragma: no cover
+                    raise AssertionError(name)
+                value = np.asarray(value, dtype=np.float64)
+                slack = TIE_RTOL * abs(lim)
+                if lower_rule:
+                    met = value >= lim - slack
+                    if bound is not None:
+                        met = met & (bound >= lim - slack)
+                else:
+                    met = value <= lim + slack
+                    if bound is not None:
+                        met = met & (bound <= lim + slack)
+            met_all &= met
+        return met_all
+
+    # ------------------------------------------------------------------ values at chosen points
+    def values_at(self, tp, fp, cols, *, cost_cum=None, pi=None):
+        """Recall, precision, flag rate (at the deployment prevalence) and cost per case
+        at one column per row (``cols`` (R,); rows with -1 give NaN)."""
+        R = tp.shape[0]
+        rows = np.arange(R)
+        c = np.where(cols < 0, 0, cols)
+        P = tp[:, -1]
+        N = fp[:, -1]
+        t = tp[rows, c]
+        f = fp[rows, c]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if pi is None:
+                pi = np.full(R, self.pi_fixed) if self.pi_fixed is not None else P / (P + N)
+            tpr = t / P
+            fpr = f / N
+            tpp, fpp = pi * tpr, (1.0 - pi) * fpr
+            prec = tpp / (tpp + fpp)
+            if self.rp.costs_given:
+                if self.rp.case_dependent_costs:
+                    miss = (cost_cum[:, -1] - cost_cum[rows, c]) / P
+                else:
+                    miss = self.rp.false_negative * (1.0 - tpr)
+                rp = self.rp
+                cost = (pi * miss + rp.false_positive * (1.0 - pi) * fpr
+                        + rp.true_positive * pi * tpr + rp.true_negative * (1.0 - pi) * (1.0 - fpr))
+            else:
+                cost = np.full(R, np.nan)
+        out = {"recall": tpr, "precision": prec, "flag_rate": tpp + fpp, "cost": cost}
+        bad = cols < 0
+        return {k: np.where(bad, np.nan, v) for k, v in out.items()}
+
+
+class StabilityCollector:
+    """Runs the chooser on every chunk of a bootstrap pass and keeps, per replicate,
+    the chosen column and the values there on the replicate and on the full data."""
+
+    def __init__(self, chooser: ReplicateChooser, n_replicates: int):
+        self.chooser = chooser
+        n = int(n_replicates)
+        self.columns = np.full(n, -1, dtype=np.int64)
+        self.apparent = {k: np.full(n, np.nan) for k in ("recall", "precision", "flag_rate", "cost")}
+        self.on_data = {k: np.full(n, np.nan) for k in ("recall", "precision", "flag_rate", "cost")}
+        cells = chooser.cells
+        self._data_tp = np.concatenate([[0.0], np.cumsum(cells.events)])[None, :]
+        self._data_fp = np.concatenate([[0.0], np.cumsum(cells.non_events)])[None, :]
+        self._data_cost = (None if cells.event_cost is None
+                           else np.concatenate([[0.0], np.cumsum(cells.event_cost)])[None, :])
+        self._offset = None
+
+    def update(self, chunk, tp, fp):
+        ch = self.chooser
+        cost_cum = chunk.cumulative_cost()
+        sq = chunk.cumulative_sq() if chunk.events_sq is not None else None
+        cols = ch.choose(tp, fp, cost_cum=cost_cum, sq=sq, events=chunk.events)
+        if self._offset is None:
+            self._offset = chunk.start
+        s = slice(chunk.start - self._offset, chunk.stop - self._offset)
+        self.columns[s] = cols
+        for k, v in ch.values_at(tp, fp, cols, cost_cum=cost_cum).items():
+            self.apparent[k][s] = v
+        R = cols.shape[0]
+        dt = np.broadcast_to(self._data_tp, (R, self._data_tp.shape[1]))
+        df = np.broadcast_to(self._data_fp, (R, self._data_fp.shape[1]))
+        dc = None if self._data_cost is None else np.broadcast_to(self._data_cost, dt.shape)
+        for k, v in ch.values_at(dt, df, cols, cost_cum=dc).items():
+            self.on_data[k][s] = v
+
+
+@dataclass(frozen=True, eq=False)
+class ThresholdStability:
+    """The policy's choice across bootstrap replicates (see the module docstring).
+
+    ``chosen`` holds each replicate's chosen threshold (NaN where no point met
+    the rules); ``threshold_range`` the empirical 2.5 % / 97.5 % quantiles of
+    the chosen point (low, high in score units); ``share_same`` and
+    ``share_within_one`` the shares of all replicates landing on the data's
+    point or within one event score of it; ``apparent`` / ``on_data`` the
+    (R,) values at each replicate's choice on the replicate and on the full
+    data, ``spread`` their 2.5 / 50 / 97.5 % quantiles.
+    """
+
+    threshold: float | None
+    column: int
+    n_replicates: int
+    seed: int
+    design: str
+    chosen: np.ndarray
+    columns: np.ndarray
+    n_infeasible: int
+    threshold_range: tuple[float, float]
+    share_same: float
+    share_within_one: float
+    apparent: dict
+    on_data: dict
+    spread: dict
+    notes: tuple[str, ...] = ()
+    data_values: dict = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        from core.choose import json_safe
+
+        return json_safe({
+            "threshold": self.threshold, "n_replicates": self.n_replicates, "seed": self.seed,
+            "design": self.design, "n_infeasible": self.n_infeasible,
+            "threshold_range_95": list(self.threshold_range), "share_same_point": self.share_same,
+            "share_within_one_event_score": self.share_within_one, "spread": self.spread,
+            "at_data_choice": self.data_values, "notes": list(self.notes),
+            "chosen_threshold_counts": self.chosen_counts(),
+        })
+
+    def chosen_counts(self) -> dict:
+        """How many replicates chose each threshold (for a histogram); key "none": infeasible."""
+        out = {}
+        th = self.chosen[~np.isnan(self.chosen)]
+        vals, counts = np.unique(th, return_counts=True)
+        for v, c in zip(vals.tolist(), counts.tolist()):
+            out[str(v) if np.isinf(v) else repr(float(v))] = int(c)
+        if self.n_infeasible:
+            out["none"] = int(self.n_infeasible)
+        return out
+
+
+def _summarise(collector: StabilityCollector, cells: EventCells, col0: int, *, seed, design,
+               notes) -> ThresholdStability:
+    cols = collector.columns
+    n = cols.shape[0]
+    th_all = np.concatenate([[cells.curve.thresholds[0]], cells.thresholds])
+    ok = cols >= 0
+    chosen = np.where(ok, th_all[np.where(ok, cols, 0)], np.nan)
+    # rank among the candidates (flag none, then event scores in point order)
+    cand = np.concatenate([[0], np.flatnonzero(cells.is_event) + 1])
+    rank = np.searchsorted(cand, np.where(ok, cols, 0))
+    same = ok & (cols == col0) if col0 >= 0 else np.zeros(n, dtype=bool)
+    if col0 >= 0:
+        r0 = int(np.searchsorted(cand, col0))
+        near = ok & (np.abs(rank - r0) <= 1)
+    else:
+        near = np.zeros(n, dtype=bool)
+    if ok.any():
+        lo_c, hi_c = np.quantile(cols[ok], [0.025, 0.975], method="inverted_cdf")
+        a, b = float(th_all[int(lo_c)]), float(th_all[int(hi_c)])
+        rng = (min(a, b), max(a, b))
+    else:
+        rng = (np.nan, np.nan)
+    spread = {}
+    for label, src in (("apparent", collector.apparent), ("on_data", collector.on_data)):
+        spread[label] = {}
+        for k, v in src.items():
+            if np.all(np.isnan(v)):
+                continue
+            lo, hi = percentile_interval(v, 0.95)
+            spread[label][k] = {"low": lo, "median": float(np.nanmedian(v)), "high": hi}
+    data_vals = {}
+    if col0 >= 0:
+        one = collector.chooser.values_at(collector._data_tp, collector._data_fp, np.array([col0]),
+                                          cost_cum=collector._data_cost)
+        data_vals = {k: float(v[0]) for k, v in one.items()}
+    return ThresholdStability(
+        threshold=None if col0 < 0 else float(th_all[col0]), column=int(col0), n_replicates=n,
+        seed=int(seed), design=design, chosen=chosen, columns=cols, n_infeasible=int((~ok).sum()),
+        threshold_range=rng, share_same=float(same.mean()), share_within_one=float(near.mean()),
+        apparent=collector.apparent, on_data=collector.on_data, spread=spread, notes=tuple(notes),
+        data_values=data_vals)
+
+
+def data_choice_column(cells: EventCells, choice) -> int:
+    """Column of a :class:`core.choose.Choice`'s point among the cells (-1: none)."""
+    if choice.point is None:
+        return -1
+    return cells.column_of_index(choice.point.index)
+
+
+def threshold_stability(data, policy: Policy, *, n_replicates: int = DEFAULT_REPLICATES,
+                        seed: int = 0, design: str = "cohort", chunk: int | None = None,
+                        progress=None, cells: EventCells | None = None,
+                        sampling_weights: str = "rows") -> ThresholdStability:
+    """Re-run the policy's choice in every bootstrap replicate (see the module docstring).
+
+    Parameters
+    ----------
+    data : Dataset or Curve
+    policy : Policy
+    n_replicates, seed, design, chunk, progress
+        As :func:`core.bootstrap.bootstrap_counts`; the same seed gives the
+        same replicates as :func:`core.bootstrap.bootstrap`.
+
+    Returns
+    -------
+    ThresholdStability
+    """
+    from core.choose import choose
+
+    _check_design(design)
+    if cells is None:
+        cells = event_cells(data, sampling_weights=sampling_weights)
+    chooser = ReplicateChooser(cells, policy, data)
+    col0 = data_choice_column(cells, choose(data, policy))
+    coll = StabilityCollector(chooser, n_replicates)
+    for ch in bootstrap_counts(cells, n_replicates, seed, design, chunk=chunk, progress=progress):
+        tp, fp = ch.cumulative()
+        coll.update(ch, tp, fp)
+    return _summarise(coll, cells, col0, seed=seed, design=design, notes=chooser.notes)
+
