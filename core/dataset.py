@@ -10,19 +10,20 @@ to drop and the fingerprint that keys every cache and record. It is built by
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, asdict
-from functools import cached_property
+from dataclasses import asdict, dataclass, field, fields
 from typing import Any
 
 import numpy as np
 
 from core.curve import Curve, _check_finite, _check_labels, sweep
 from core.errors import InputError
-from core.fingerprint import fingerprint_arrays
+from core.fingerprint import canonical_text, fingerprint_arrays
 
-__all__ = ["Mapping", "IntakeWarning", "Dataset", "WEIGHT_KINDS"]
+__all__ = ["WEIGHT_KINDS", "Dataset", "IntakeWarning", "Mapping"]
 
 WEIGHT_KINDS = ("frequency", "sampling")
+_COLUMN_FIELDS = ("score", "label", "weight", "cluster", "score_time", "outcome_time", "case_cost",
+                  "events", "non_events", "event_cost", "events_sq", "non_events_sq")
 
 
 @dataclass(frozen=True)
@@ -55,6 +56,26 @@ class Mapping:
     events_sq: str | None = None
     non_events_sq: str | None = None
 
+    @classmethod
+    def from_dict(cls, d: dict) -> Mapping:
+        """A Mapping from a plain dict (e.g. JSON): lists become tuples, blanks None."""
+        known = {f.name for f in fields(cls)}
+        unknown = sorted(set(d) - known)
+        if unknown:
+            raise InputError("mapping", f"has unknown field(s) {', '.join(unknown)}; known fields are "
+                                        f"{', '.join(sorted(known))}")
+        kw = dict(d)
+        if kw.get("groups") is None:
+            kw["groups"] = ()
+        elif isinstance(kw["groups"], str):
+            kw["groups"] = (kw["groups"],)
+        else:
+            kw["groups"] = tuple(str(g) for g in kw["groups"])
+        for name in _COLUMN_FIELDS:
+            if isinstance(kw.get(name), str) and not kw[name].strip():
+                kw[name] = None
+        return cls(**kw)
+
     def to_dict(self) -> dict:
         d = asdict(self)
         d["groups"] = list(self.groups)
@@ -82,8 +103,17 @@ class Dataset:
 
     Row datasets carry ``y_true`` (bool) and ``y_score`` (float64) per row and
     the optional per-row columns; count datasets carry ``y_score`` as the
-    table's scores with ``events`` / ``non_events`` per table row and no
-    per-case columns.
+    table's scores with ``events`` / ``non_events`` per table row, optional
+    ``groups`` per table row, and no per-case columns.
+
+    Group and cluster values are canonical text (object arrays of ``str``,
+    None where missing; see :func:`core.fingerprint.canonical_text`), so the
+    same cases from CSV, Excel or Parquet compare equal. Times are
+    ``datetime64[ns]`` (UTC when the source had a time zone). ``case_cost`` is
+    NaN where a non-event has no amount. ``dropped_rows`` counts the rows the
+    user chose to drop (missing scores) and ``dropped_positions`` holds the
+    first 100 of them as 1-based data rows; ``source_rows`` is the row count
+    as read.
     """
 
     kind: str
@@ -116,7 +146,7 @@ class Dataset:
     def from_arrays(cls, y_true, y_score, sample_weight=None, *, weight_kind=None, groups=None,
                     cluster=None, score_time=None, outcome_time=None, outcome_horizon_days=None,
                     case_cost=None, higher_is_riskier=True, file_name=None,
-                    warnings=()) -> "Dataset":
+                    warnings=()) -> Dataset:
         """A row dataset from arrays, checked like :func:`core.curve.sweep` checks them."""
         y = _check_labels(y_true)
         n = y.shape[0]
@@ -133,8 +163,13 @@ class Dataset:
             arr = np.asarray(values, dtype=object)
             if arr.shape != (n,):
                 raise InputError(name, f"has {arr.shape[0]:,} values, expected {n:,}")
-            grp[str(name)] = arr
-        cl = None if cluster is None else np.asarray(cluster, dtype=object)
+            grp[str(name)] = canonical_text(arr)
+        cl = None
+        if cluster is not None:
+            cl = np.asarray(cluster, dtype=object)
+            if cl.shape != (n,):
+                raise InputError("cluster", f"has {cl.shape[0]:,} values, expected {n:,}")
+            cl = canonical_text(cl)
         st = None if score_time is None else np.asarray(score_time, dtype="datetime64[ns]")
         ot = None if outcome_time is None else np.asarray(outcome_time, dtype="datetime64[ns]")
         cc = None
@@ -161,11 +196,17 @@ class Dataset:
     @classmethod
     def from_count_table(cls, score, events, non_events, *, event_cost=None, events_sq=None,
                          non_events_sq=None, higher_is_riskier=True, file_name=None,
-                         mapping: Mapping | None = None, warnings=()) -> "Dataset":
+                         mapping: Mapping | None = None, warnings=(), groups=None) -> Dataset:
         """A count dataset: one row per (score[, group]) with event / non-event totals."""
         s = np.asarray(score)
         n = s.shape[0]
         s = _check_finite("score", s, n) + 0.0
+        grp = {}
+        for name, values in (groups or {}).items():
+            arr = np.asarray(values, dtype=object)
+            if arr.shape != (n,):
+                raise InputError(name, f"has {arr.shape[0]:,} values, expected {n:,}")
+            grp[str(name)] = canonical_text(arr)
         e = _check_finite("events", events, n, allow_negative=False)
         ne = _check_finite("non_events", non_events, n, allow_negative=False)
         extra = {k: None if v is None else _check_finite(k, v, n, allow_negative=False)
@@ -176,16 +217,21 @@ class Dataset:
             event_cost=None if event_cost is None else "event_cost",
             events_sq=None if events_sq is None else "events_sq",
             non_events_sq=None if non_events_sq is None else "non_events_sq",
-            higher_is_riskier=bool(higher_is_riskier))
-        ds = cls(kind="counts", mapping=mapping, y_score=s, events=e, non_events=ne,
+            groups=tuple(grp), higher_is_riskier=bool(higher_is_riskier))
+        ds = cls(kind="counts", mapping=mapping, y_score=s, events=e, non_events=ne, groups=grp,
                  event_cost=extra["event_cost"], events_sq=extra["events_sq"],
                  non_events_sq=extra["non_events_sq"], file_name=file_name,
                  warnings=tuple(warnings), source_rows=n)
         ds.curve()  # checks both classes are present
         return ds.with_fingerprint()
 
-    def with_fingerprint(self) -> "Dataset":
-        """This dataset with its fingerprint computed (see :mod:`core.fingerprint`)."""
+    def with_fingerprint(self, *, text_codes_of: dict | None = None) -> Dataset:
+        """This dataset with its fingerprint computed (see :mod:`core.fingerprint`).
+
+        ``text_codes_of`` (``"cluster"`` / ``"group:<name>"`` ->
+        :func:`core.fingerprint.text_codes` of that array) saves recomputing
+        the text encoding the intake already has.
+        """
         arrays = {
             "y_score": self.y_score, "y_true": self.y_true, "sample_weight": self.sample_weight,
             "cluster": self.cluster, "score_time": self.score_time, "outcome_time": self.outcome_time,
@@ -195,7 +241,8 @@ class Dataset:
         }
         for g, v in self.groups.items():
             arrays[f"group:{g}"] = v
-        fp = fingerprint_arrays(arrays, self.mapping.to_dict())
+        text = {"cluster"} | {f"group:{g}" for g in self.groups}
+        fp = fingerprint_arrays(arrays, self.mapping.to_dict(), text=text, text_codes_of=text_codes_of)
         object.__setattr__(self, "fingerprint", fp)
         return self
 
@@ -249,7 +296,7 @@ class Dataset:
             object.__setattr__(self, "_curve", c)
         return c
 
-    def subset(self, mask) -> "Dataset":
+    def subset(self, mask) -> Dataset:
         """The rows where ``mask`` holds, as a new row dataset (same mapping)."""
         if self.kind != "rows":
             raise InputError(None, "a count table cannot be split by rows")
