@@ -119,20 +119,33 @@ def _merge(codes: np.ndarray, texts: list) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _arrow_text_codes(arr) -> tuple[np.ndarray, np.ndarray]:
+    """text_codes of a pyarrow string array, vectorised.
+
+    The raw strings are dictionary-encoded first (indices in order of first
+    appearance); only the distinct strings are then trimmed and checked for
+    missing-value words, and re-encoded when that merges or removes any.
+    Re-encoding the dictionary in its own order keeps the codes numbered by
+    first appearance in the rows.
+    """
     import pyarrow as pa
     import pyarrow.compute as pc
 
     if isinstance(arr, pa.ChunkedArray):
         arr = arr.combine_chunks() if arr.num_chunks != 1 else arr.chunk(0)
-    if not pa.types.is_string(arr.type):
-        arr = arr.cast(pa.string()) if pa.types.is_large_string(arr.type) else arr
-    arr = pc.utf8_trim_whitespace(arr)
-    words = pc.is_in(arr, value_set=pa.array(sorted(_MISSING_WORDS), type=arr.type))
-    arr = pc.if_else(words, pa.scalar(None, type=arr.type), arr)
+    if pa.types.is_large_string(arr.type):
+        arr = arr.cast(pa.string())
     enc = arr.dictionary_encode()
     codes = enc.indices.fill_null(-1).to_numpy(zero_copy_only=False).astype(np.int64)
-    dictionary = np.empty(len(enc.dictionary), dtype=object)
-    dictionary[:] = enc.dictionary.to_pylist()
+    raw = enc.dictionary
+    clean = pc.utf8_trim_whitespace(raw)
+    words = pc.is_in(clean, value_set=pa.array(sorted(_MISSING_WORDS), type=pa.string()))
+    if pc.any(words).as_py() or not clean.equals(raw):
+        clean = pc.if_else(words, pa.scalar(None, type=pa.string()), clean)
+        enc2 = clean.dictionary_encode()
+        remap = np.append(enc2.indices.fill_null(-1).to_numpy(zero_copy_only=False), -1)
+        codes = remap.astype(np.int64)[codes]
+        clean = enc2.dictionary
+    dictionary = clean.to_numpy(zero_copy_only=False).astype(object)
     return codes, dictionary
 
 

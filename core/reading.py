@@ -314,7 +314,7 @@ def _decode_sample(data: bytes) -> str:
 
 def _sample_rows(sample: str, delimiter: str) -> list[list[str]]:
     rows = [r for r in csv.reader(io.StringIO(sample, newline=""), delimiter=delimiter) if r]
-    return rows[:2000]
+    return rows[:1000]
 
 
 def _detect_delimiter(sample: str, preferred: str) -> tuple[str, bool]:
