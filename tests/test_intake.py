@@ -907,6 +907,23 @@ def test_fingerprint_canonical_values():
     assert c.fingerprint != a.fingerprint  # row order is part of the data
 
 
+def test_parquet_categoricals_and_nullable_ints_match_csv():
+    frame = balanced()
+    frame["site"] = np.where(np.arange(200) % 3 == 0, "North", "Quay")
+    frame["patient"] = np.arange(200) % 50
+    typed = frame.assign(
+        site=frame["site"].astype("category"),
+        label=frame["label"].map({1: "yes", 0: "no"}).astype("category"),
+        patient=frame["patient"].astype("Int64"),
+    )
+    plain = frame.assign(label=frame["label"].map({1: "yes", 0: "no"}))
+    mp = {**M, "positive_label": "yes", "groups": ["site"], "cluster": "patient"}
+    a = load_dataset(parquet(typed), mp)
+    b = load_dataset(plain.to_csv(index=False).encode(), mp)
+    assert a.fingerprint == b.fingerprint
+    assert a.cluster[:3].tolist() == ["0", "1", "2"]
+
+
 def test_subset_fingerprint_equals_the_loaded_subset():
     frame = balanced()
     frame["site"] = np.where(np.arange(200) % 3 == 0, "North", "Quay")
