@@ -337,6 +337,28 @@ def _detect_delimiter(sample: str, preferred: str) -> tuple[str, bool]:
     return best[1], True
 
 
+_DIGITS = re.compile(r"^\d+$")
+
+
+def _zero_padded(rows: list[list[str]]) -> list[int]:
+    """Columns of whole numbers written with leading zeros (ids such as 00123).
+
+    Read as numbers, 00123 and 0123 would both become 123 and two ids one;
+    such columns are kept as text.
+    """
+    width = len(rows[0]) if rows else 0
+    out = []
+    for k in range(width):
+        vals = [r[k].strip() for r in rows[1:] if k < len(r) and r[k].strip()]
+        if (
+            vals
+            and all(_DIGITS.match(v) for v in vals)
+            and any(len(v) > 1 and v[0] == "0" for v in vals)
+        ):
+            out.append(k)
+    return out
+
+
 def _detect_decimal(rows: list[list[str]], delimiter: str) -> tuple[str, str | None]:
     """(decimal mark, thousands separator) from the sample's data fields."""
     n_comma = n_point = n_grouped = 0
@@ -442,10 +464,12 @@ def _parse_text(
     include: list[int] | None,
     skip: int,
     label: str,
+    as_text: Sequence[int] = (),
 ):
     """The parsed text as a pyarrow Table (pyarrow reads the header and infers types).
 
-    ``include``: positions of the columns to convert (all when None).
+    ``include``: positions of the columns to convert (all when None);
+    ``as_text``: positions of columns kept as text whatever they look like.
     """
     import pyarrow as pa
     import pyarrow.csv as pacsv
@@ -461,9 +485,12 @@ def _parse_text(
     )
     read = pacsv.ReadOptions(use_threads=True, skip_rows=skip)
     keep = None
-    if include is not None and len(set(raw_names)) == len(raw_names):
+    unique = len(set(raw_names)) == len(raw_names)
+    if include is not None and unique:
         keep = [raw_names[k] for k in include]
+    types = {raw_names[k]: pa.string() for k in as_text} if unique else None
     convert = pacsv.ConvertOptions(
+        column_types=types,
         null_values=list(MISSING_TEXT),
         strings_can_be_null=True,
         quoted_strings_can_be_null=True,
@@ -589,7 +616,10 @@ def _read_text(
         if missing:
             raise missing_column_error(missing[0], _role(columns, missing[0]), names, delim)
         include = [names.index(c) for c in columns]
-    table = _parse_text(utf8, delim, dec, raw_names, include, skip, label)
+    padded = _zero_padded(rows)
+    for k in padded:
+        notes.append(f"Column {names[k]!r} keeps its leading zeros (read as text, not numbers).")
+    table = _parse_text(utf8, delim, dec, raw_names, include, skip, label, padded)
     if any(pa.types.is_binary(f.type) or pa.types.is_large_binary(f.type) for f in table.schema):
         # pyarrow keeps a column whose bytes are not valid UTF-8 as binary
         if fallback or used_encoding != "utf-8":
@@ -600,7 +630,7 @@ def _read_text(
             )
         utf8 = _fallback_cp1252(utf8, label, notes)
         used_encoding, fallback = "cp1252", True
-        table = _parse_text(utf8, delim, dec, raw_names, include, skip, label)
+        table = _parse_text(utf8, delim, dec, raw_names, include, skip, label, padded)
     if table.num_columns != (len(names) if include is None else len(include)):
         raise _file_error(
             label,

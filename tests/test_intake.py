@@ -295,6 +295,14 @@ def test_header_quirks():
     assert ds.groups["column 2"].tolist() == ["2", "4"]
 
 
+def test_ids_with_leading_zeros_stay_text():
+    data = csv("pid,score,label", "00123,0.1,1", "0123,0.2,0", "123,0.3,0")
+    raw = read_table(data)
+    assert "Column 'pid' keeps its leading zeros (read as text, not numbers)." in raw.info.notes
+    ds = load_dataset(data, {**M, "cluster": "pid"})
+    assert ds.cluster.tolist() == ["00123", "0123", "123"]  # three patients, not one
+
+
 def test_spreadsheet_sep_line():
     raw = read_table(csv("sep=;", "score;label", "0,5;1", "0,25;0"))
     assert raw.info.delimiter == ";" and raw.columns == ["score", "label"]
