@@ -93,7 +93,6 @@ __all__ = [
     "ReplicateChunk",
     "event_cells",
     "bootstrap_counts",
-    "replicate_seeds",
     "roc_auc",
     "average_precision",
     "counts_at",
@@ -126,11 +125,6 @@ def _check_design(design: str) -> str:
     return design
 
 
-def replicate_seeds(seed: int, start: int, stop: int):
-    """The generator of each replicate r in ``start..stop-1``: ``default_rng([seed, r])``."""
-    return [np.random.default_rng([int(seed), int(r)]) for r in range(start, stop)]
-
-
 # --------------------------------------------------------------------------- units
 
 class _Units:
@@ -148,7 +142,8 @@ class _Units:
         mass = np.asarray(mass, dtype=np.float64)
         self.n_cells = int(n_cells)
         self.cell = None if cell is None else np.asarray(cell, dtype=np.int64)
-        self.unit_weight = None if unit_weight is None else np.asarray(unit_weight, dtype=np.float64)
+        self.unit_weight = (None if unit_weight is None
+                            else np.asarray(unit_weight, dtype=np.float64))
         self.unit_cost = None if unit_cost is None else np.asarray(unit_cost, dtype=np.float64)
         self.track_sq = bool(track_sq)
         self.k = mass.shape[0]
@@ -169,7 +164,8 @@ class _Units:
         self.small_singletons = bool(self.small_idx.size and np.all(mass[small] == 1))
         # row -> unit of the small units, so a drawn row finds its unit by a gather
         self.small_rows = None if self.small_singletons else np.repeat(
-            np.arange(self.small_idx.size, dtype=np.int32 if self.small_idx.size < 2**31 else np.int64),
+            np.arange(self.small_idx.size,
+                      dtype=np.int32 if self.small_idx.size < 2**31 else np.int64),
             mass[small].astype(np.int64))
         self.large_idx = np.flatnonzero(large)
         self.large_mass = mass[large]
@@ -178,7 +174,8 @@ class _Units:
             self.large_cum = np.cumsum(self.large_mass.astype(np.int64))
         else:
             self.large_cum = np.cumsum(self.large_mass)
-        self.large_share = self.large_mass / self.large_total if self.large_idx.size else self.large_mass
+        self.large_share = (self.large_mass / self.large_total if self.large_idx.size
+                            else self.large_mass)
         self.small_share = (self.small_total / total) if total > 0 else 0.0
 
     # ------------------------------------------------------------------ draws
@@ -198,7 +195,8 @@ class _Units:
             if self.small_singletons:
                 counts[self.small_idx] = np.bincount(u, minlength=self.small_idx.size)
             else:
-                counts[self.small_idx] = np.bincount(self.small_rows[u], minlength=self.small_idx.size)
+                counts[self.small_idx] = np.bincount(self.small_rows[u],
+                                                     minlength=self.small_idx.size)
         m_large = m - m_small
         if m_large:
             counts[self.large_idx] = self._draw_large(g, m_large)
@@ -333,8 +331,8 @@ class EventCells:
             return 0
         j = int(np.searchsorted(self.index, k))
         if j >= self.index.shape[0] or self.index[j] != k:
-            raise InputError("threshold", f"{threshold!r} does not sit on a cell boundary; pass it to "
-                             "event_cells(..., thresholds=[...]) so its counts are kept")
+            raise InputError("threshold", f"{threshold!r} does not sit on a cell boundary; pass "
+                             "it to event_cells(..., thresholds=[...]) so its counts are kept")
         return j + 1
 
     def column_of_index(self, k: int) -> int:
@@ -353,7 +351,8 @@ class EventCells:
         j = np.searchsorted(asc, s, side="left")
         d = asc.shape[0]
         if np.any(j >= d) or np.any(asc[np.minimum(j, d - 1)] != s):
-            raise InputError("y_score", "holds scores that are not on the curve (use the data's own cells)")
+            raise InputError("y_score", "holds scores that are not on the curve (use the data's "
+                             "own cells)")
         return _row_cells(self.curve, self.index, s)
 
     def to_curve(self, events=None, non_events=None, *, event_cost=None, events_sq=None,
@@ -368,7 +367,8 @@ class EventCells:
         e = self.events if events is None else np.asarray(events, dtype=np.float64)
         n = self.non_events if non_events is None else np.asarray(non_events, dtype=np.float64)
         if events is None:
-            event_cost, events_sq, non_events_sq = self.event_cost, self.events_sq, self.non_events_sq
+            event_cost, events_sq = self.event_cost, self.events_sq
+            non_events_sq = self.non_events_sq
         keep = (e + n > 0) if drop_empty else np.ones(e.shape[0], dtype=bool)
 
         def k(a):
@@ -557,7 +557,8 @@ def event_cells(data, *, thresholds=(), weight_kind: str | None = None,
         return a
 
     return EventCells(
-        thresholds=ro(curve.thresholds[b]), index=ro(b), events=ro(ev_cells), non_events=ro(ne_cells),
+        thresholds=ro(curve.thresholds[b]), index=ro(b), events=ro(ev_cells),
+        non_events=ro(ne_cells),
         is_event=ro(is_event), higher_is_riskier=curve.higher_is_riskier, curve=curve,
         weight_kind=wk, sampling_method=method, events_sq=ro(ev_sq), non_events_sq=ro(ne_sq),
         event_cost=ro(cost), cost_exact=cost_exact, _event_units=ev_units, _nonevent_units=ne_units,
@@ -610,14 +611,31 @@ def _default_chunk(n_cells: int) -> int:
     return int(np.clip((1 << 19) // max(n_cells, 1), 1, 256))
 
 
+def _draw_replicate(eu: _Units, nu: _Units, design: str, seed: int, r: int):
+    """Replicate r's cell weights, squared weights and miss costs, from its own generator."""
+    g = np.random.default_rng([int(seed), int(r)])
+    if design == "cohort":  # the event total first: Binomial(n, P / n), then each class's cells
+        total = eu.n_units + nu.n_units
+        m_ev = int(g.binomial(total, eu.total_mass / (eu.total_mass + nu.total_mass)))
+        m_ne = total - m_ev
+    else:
+        m_ev, m_ne = eu.n_units, nu.n_units
+    e, e_sq, cost = eu.to_cells(eu.draw(g, m_ev))
+    n, n_sq, _ = nu.to_cells(nu.draw(g, m_ne))
+    return e, n, e_sq, n_sq, cost
+
+
 def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
                      design: str = "cohort", *, chunk: int | None = None, start: int = 0,
-                     progress=None):
+                     progress=None, n_jobs: int = 1):
     """Yield :class:`ReplicateChunk` s of replicate cell counts, ``chunk`` replicates at a time.
 
     Replicate r uses ``numpy.random.default_rng([seed, r])`` alone, so the
-    replicates do not depend on ``chunk``. ``progress(done, total)`` is called
-    after each chunk. See the module docstring for the draws and their cost.
+    replicates do not depend on ``chunk``, on ``start`` or on ``n_jobs``
+    (threads drawing the replicates of a chunk side by side; numpy's
+    generators release the GIL while they draw). ``progress(done, total)`` is
+    called after each chunk. See the module docstring for the draws and their
+    cost.
     """
     _check_design(design)
     n_rep = int(n_replicates)
@@ -627,41 +645,37 @@ def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, 
     size = _default_chunk(C) if chunk is None else int(chunk)
     if size < 1:
         raise InputError("chunk", f"must be at least 1, got {chunk!r}")
+    if int(n_jobs) < 1:
+        raise InputError("n_jobs", f"must be at least 1, got {n_jobs!r}")
     eu, nu = cells._event_units, cells._nonevent_units
-    sq = eu.track_sq
-    cost = eu.unit_cost is not None
-    total_units = eu.n_units + nu.n_units
-    mass_total = eu.total_mass + nu.total_mass
-    p_event = eu.total_mass / mass_total
-    stop_all = start + n_rep
-    for lo in range(start, stop_all, size):
-        hi = min(lo + size, stop_all)
-        R = hi - lo
-        E = np.empty((R, C))
-        N = np.empty((R, C))
-        Esq = np.empty((R, C)) if sq else None
-        Nsq = np.empty((R, C)) if sq else None
-        K = np.empty((R, C)) if cost else None
-        for i, g in enumerate(replicate_seeds(seed, lo, hi)):
-            if design == "cohort":
-                m_ev = int(g.binomial(total_units, p_event))
-                m_ne = total_units - m_ev
+    pool = None
+    if int(n_jobs) > 1:
+        from concurrent.futures import ThreadPoolExecutor
+
+        pool = ThreadPoolExecutor(max_workers=int(n_jobs))
+    try:
+        stop_all = start + n_rep
+        for lo in range(start, stop_all, size):
+            hi = min(lo + size, stop_all)
+            rs = range(lo, hi)
+            if pool is None:
+                draws = [_draw_replicate(eu, nu, design, seed, r) for r in rs]
             else:
-                m_ev, m_ne = eu.n_units, nu.n_units
-            w, s2, c = eu.to_cells(eu.draw(g, m_ev))
-            E[i] = w
-            if sq:
-                Esq[i] = s2
-            if cost:
-                K[i] = c
-            w, s2, _ = nu.to_cells(nu.draw(g, m_ne))
-            N[i] = w
-            if sq:
-                Nsq[i] = s2
-        yield ReplicateChunk(start=lo, stop=hi, events=E, non_events=N, events_sq=Esq,
-                             non_events_sq=Nsq, event_cost=K)
-        if progress is not None:
-            progress(hi - start, n_rep)
+                draws = list(pool.map(lambda r: _draw_replicate(eu, nu, design, seed, r), rs))
+            cols = list(zip(*draws))
+            E, N = np.vstack(cols[0]), np.vstack(cols[1])
+            Esq = Nsq = K = None
+            if eu.track_sq:
+                Esq, Nsq = np.vstack(cols[2]), np.vstack(cols[3])
+            if eu.unit_cost is not None:
+                K = np.vstack(cols[4])
+            yield ReplicateChunk(start=lo, stop=hi, events=E, non_events=N, events_sq=Esq,
+                                 non_events_sq=Nsq, event_cost=K)
+            if progress is not None:
+                progress(hi - start, n_rep)
+    finally:
+        if pool is not None:
+            pool.shutdown(wait=True)
 
 
 # --------------------------------------------------------------------------- statistics
@@ -684,6 +698,17 @@ def roc_auc(tp, fp):
         return area / (P * N)
 
 
+def _roc_auc_cells(tp, events, non_events):
+    """:func:`roc_auc` from the cells: with TP_{i-1} = TP_i - E_i the trapezoids sum to
+    ``sum_i N_i TP_i - sum_i N_i E_i / 2`` (no temporary the size of the matrix)."""
+    P = tp[:, -1]
+    N = non_events.sum(axis=1)
+    area = (np.einsum("ij,ij->i", non_events, tp[:, 1:])
+            - 0.5 * np.einsum("ij,ij->i", non_events, events))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return area / (P * N)
+
+
 def average_precision(tp, fp):
     """Average precision of each replicate row: ``sum_i (R_i - R_{i-1}) P_i``.
 
@@ -698,6 +723,18 @@ def average_precision(tp, fp):
         return np.einsum("ij,ij->i", dtp, prec) / P
 
 
+def _average_precision_ties(tp, fp, events, tie):
+    """:func:`average_precision` summed over the tie cells only (recall moves nowhere
+    else): ``events[:, tie]`` are the recall steps at columns ``tie + 1``."""
+    cols = tie + 1
+    d = events[:, tie]
+    t = tp[:, cols]
+    flagged = t + fp[:, cols]
+    np.maximum(flagged, 1e-300, out=flagged)  # 0 only where d == 0 too
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.einsum("ij,ij->i", d, t / flagged) / tp[:, -1]
+
+
 def counts_at(tp, fp, columns):
     """``(tp, fp, fn, tn)`` of each replicate at the given boundary ``columns``: (R, k) each."""
     cols = np.asarray(columns, dtype=np.int64)
@@ -707,37 +744,24 @@ def counts_at(tp, fp, columns):
     return t, f, P[:, None] - t, N[:, None] - f
 
 
-def _rowwise_search(values, queries, side):
-    """``searchsorted`` of ``queries`` (G,) in every row of ``values`` (R, M), rows
-    non-decreasing with values in [0, 1]: offsets of 2 per row make one sorted array."""
-    R, M = values.shape
-    off = 2.0 * np.arange(R)[:, None]
-    flat = (values + off).ravel()
-    q = (np.asarray(queries, dtype=np.float64)[None, :] + off)
-    pos = np.searchsorted(flat, q.ravel(), side=side).reshape(R, -1)
-    return pos - (np.arange(R) * M)[:, None]
-
-
 def precision_at_recall(tp, fp, recall_grid=DEFAULT_RECALL_GRID):
     """Precision of each replicate at the strictest boundary reaching each recall level.
 
     For recall level r the point is the first (strictest) with
-    ``TP >= r P``: the threshold a "recall at least r" rule would pick. (R, G).
+    ``TP >= r P`` (less 1e-12 P for float rounding): the threshold a "recall
+    at least r" rule would pick. One binary search per replicate row, no
+    pass over the whole matrix. (R, G); NaN for a replicate without events.
     """
-    P, _ = _totals(tp, fp)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rec = tp / P[:, None]
-    rec = np.where(np.isfinite(rec), rec, 0.0)
     r = np.asarray(recall_grid, dtype=np.float64)
-    # tolerate float rounding of TP / P against the grid
-    pos = _rowwise_search(rec, r - 1e-12, "left")
-    pos = np.minimum(pos, tp.shape[1] - 1)
-    rows = np.arange(tp.shape[0])[:, None]
-    t = tp[rows, pos]
-    f = fp[rows, pos]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        out = t / (t + f)
-    out[~(P > 0)] = np.nan
+    R, M = tp.shape
+    out = np.full((R, r.shape[0]), np.nan)
+    for i in range(R):
+        P = tp[i, -1]
+        if not P > 0:
+            continue
+        pos = np.minimum(np.searchsorted(tp[i], (r - 1e-12) * P, side="left"), M - 1)
+        t = tp[i, pos]
+        out[i] = t / (t + fp[i, pos])
     return out
 
 
@@ -746,28 +770,24 @@ def tpr_at_fpr(tp, fp, fpr_grid=DEFAULT_FPR_GRID):
 
     Between two boundaries the row curve is a straight segment (horizontal in
     a gap cell, the ties' diagonal in a tie cell); at a vertical step the top
-    is taken. (R, G).
+    is taken. One binary search per replicate row. (R, G); NaN for a
+    replicate without events or without non-events.
     """
-    P, N = _totals(tp, fp)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        tpr = tp / P[:, None]
-        fpr = fp / N[:, None]
-    bad = ~((P > 0) & (N > 0))
-    tpr = np.where(bad[:, None], 0.0, tpr)
-    fpr = np.where(bad[:, None], 0.0, fpr)
     f = np.asarray(fpr_grid, dtype=np.float64)
-    M = tp.shape[1]
-    i = _rowwise_search(fpr, f, "right") - 1
-    i = np.clip(i, 0, M - 1)
-    j = np.minimum(i + 1, M - 1)
-    rows = np.arange(tp.shape[0])[:, None]
-    x0, x1 = fpr[rows, i], fpr[rows, j]
-    y0, y1 = tpr[rows, i], tpr[rows, j]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        slope = np.where(x1 > x0, (y1 - y0) / np.where(x1 > x0, x1 - x0, 1.0), 0.0)
-    out = y0 + (f[None, :] - x0) * slope
-    out = np.minimum(out, 1.0)
-    out[bad] = np.nan
+    R, M = tp.shape
+    out = np.full((R, f.shape[0]), np.nan)
+    for i in range(R):
+        P, N = tp[i, -1], fp[i, -1]
+        if not (P > 0 and N > 0):
+            continue
+        x = f * N  # the grid in counts
+        j0 = np.clip(np.searchsorted(fp[i], x, side="right") - 1, 0, M - 1)
+        j1 = np.minimum(j0 + 1, M - 1)
+        x0, x1 = fp[i, j0], fp[i, j1]
+        y0, y1 = tp[i, j0], tp[i, j1]
+        step = x1 > x0
+        slope = np.where(step, (y1 - y0) / np.where(step, x1 - x0, 1.0), 0.0)
+        out[i] = np.minimum((y0 + (x - x0) * slope) / P, 1.0)
     return out
 
 
@@ -882,7 +902,7 @@ def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
               costs: dict | None = None, cases_per_period: float | None = None,
               recall_grid=DEFAULT_RECALL_GRID, fpr_grid=DEFAULT_FPR_GRID, chunk: int | None = None,
               progress=None, collectors=(), cells: EventCells | None = None,
-              sampling_weights: str = "rows") -> BootstrapResult:
+              sampling_weights: str = "rows", n_jobs: int = 1) -> BootstrapResult:
     """The exact bootstrap of the curve's statistics in one pass.
 
     Parameters
@@ -909,6 +929,8 @@ def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
         the threshold-stability collector), so one pass serves them all.
     cells : EventCells, optional
         Reuse cells already built from ``data`` (they must keep ``thresholds``).
+    n_jobs : int, default 1
+        Threads drawing replicates (see :func:`bootstrap_counts`).
 
     Returns
     -------
@@ -920,7 +942,8 @@ def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
         cells = event_cells(data, thresholds=ths, sampling_weights=sampling_weights)
     cols = [cells.column(t) for t in ths]
     if costs is not None and costs.get("false_negative") is None and not cells.has_costs:
-        raise InputError("costs", "false_negative is missing and the data hold no per-case miss costs")
+        raise InputError("costs", "false_negative is missing and the data hold no per-case miss "
+                         "costs")
     if prevalence is not None and not 0.0 < float(prevalence) < 1.0:
         raise InputError("prevalence", f"must lie strictly between 0 and 1, got {prevalence!r}")
     n_rep = int(n_replicates)
@@ -936,13 +959,15 @@ def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
     at_tp, at_fp = np.empty((n_rep, k)), np.empty((n_rep, k))
     at_cost = np.empty((n_rep, k)) if costs is not None else None
     at_pi = np.empty(n_rep)
-    for ch in bootstrap_counts(cells, n_rep, seed, design, chunk=chunk, progress=progress):
+    tie = np.flatnonzero(cells.is_event)
+    for ch in bootstrap_counts(cells, n_rep, seed, design, chunk=chunk, progress=progress,
+                               n_jobs=n_jobs):
         tp, fp = ch.cumulative()
         s = slice(ch.start, ch.stop)
         P, N = _totals(tp, fp)
         Ps[s], Ns[s] = P, N
-        auc[s] = roc_auc(tp, fp)
-        ap[s] = average_precision(tp, fp)
+        auc[s] = _roc_auc_cells(tp, ch.events, ch.non_events)
+        ap[s] = _average_precision_ties(tp, fp, ch.events, tie)
         pb[s] = precision_at_recall(tp, fp, rg)
         tb[s] = tpr_at_fpr(tp, fp, fg)
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -952,7 +977,8 @@ def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
             t, f, _, _ = counts_at(tp, fp, cols)
             at_tp[s], at_fp[s] = t, f
             if at_cost is not None:
-                at_cost[s] = _cost_per_case(t, f, P, N, ch.cumulative_cost(), cols, costs, pi[:, None])
+                at_cost[s] = _cost_per_case(t, f, P, N, ch.cumulative_cost(), cols, costs,
+                                            pi[:, None])
         for c in collectors:
             c.update(ch, tp, fp)
     at = {}

@@ -70,7 +70,8 @@ def _values(tp, fp, P, N, pi, rp, missed_cost=None):
         if rp.costs_given:
             miss = (missed_cost / P) if rp.case_dependent_costs else rp.false_negative * (1.0 - tpr)
             out["cost"] = (pi * miss + rp.false_positive * (1.0 - pi) * fpr
-                           + rp.true_positive * pi * tpr + rp.true_negative * (1.0 - pi) * (1.0 - fpr))
+                           + rp.true_positive * pi * tpr
+                           + rp.true_negative * (1.0 - pi) * (1.0 - fpr))
         else:
             out["cost"] = np.nan
     return {k: float(v) for k, v in out.items()}
@@ -141,8 +142,8 @@ def _fold_cells(data, cells: EventCells, k: int, seed: int):
     if ds is not None and ds.kind == "rows":
         y = ds.y_true
         if int(y.sum()) < k:
-            raise InputError("k", f"cross-fitting with {k} folds needs at least {k} events; the data "
-                             f"hold {int(y.sum())}")
+            raise InputError("k", f"cross-fitting with {k} folds needs at least {k} events; "
+                             f"the data hold {int(y.sum())}")
         fold = _stratified_folds(y, k, rng)
         cell = cells.cell_of(ds.y_score)
         w = np.ones(y.shape[0]) if ds.sample_weight is None else ds.sample_weight
@@ -162,7 +163,8 @@ def _fold_cells(data, cells: EventCells, k: int, seed: int):
     # a count table or a curve: split each cell's cases
     e, ne = cells.events, cells.non_events
     if not (np.all(e == np.round(e)) and np.all(ne == np.round(ne))):
-        raise InputError("events", "cross-fitting a count table needs whole-number counts (or the rows)")
+        raise InputError("events", "cross-fitting a count table needs whole-number counts "
+                         "(or the rows)")
     if cells.weight_kind == "sampling":
         raise InputError("sample_weight", "cross-fitting with sampling weights needs the rows")
     if e.sum() < k:
@@ -220,7 +222,8 @@ def cross_fit(data, policy: Policy, *, k: int = DEFAULT_FOLDS, seed: int = 0,
         else:
             train = {key: tot[key] - test[key] for key in folds}
             curve = cells.to_curve(train["events"], train["non_events"],
-                                   event_cost=train.get("event_cost"), events_sq=train.get("events_sq"),
+                                   event_cost=train.get("event_cost"),
+                                   events_sq=train.get("events_sq"),
                                    non_events_sq=train.get("non_events_sq"))
             train_ch = choose(curve, pol, weight_kind=wk if wk is not None else None)
         if train_ch.point is None:
@@ -257,12 +260,12 @@ def cross_fit(data, policy: Policy, *, k: int = DEFAULT_FOLDS, seed: int = 0,
     counts = {"tp": held["tp"], "fp": held["fp"], "fn": held["P"] - held["tp"],
               "tn": held["N"] - held["fp"]}
     is_rows = isinstance(data, Dataset) and data.kind == "rows"
-    method = (f"stratified {k}-fold cross-fitting (seed {seed}): choose on {k - 1} folds, count the "
-              f"held-out fold at that threshold, pool the held-out counts; "
+    method = (f"stratified {k}-fold cross-fitting (seed {seed}): choose on {k - 1} folds, count "
+              f"the held-out fold at that threshold, pool the held-out counts; "
               + ("rows assigned by a seeded permutation within each class"
                  if is_rows else "cells split by multivariate hypergeometric draws"))
-    return CrossFit(k=k, seed=int(seed), thresholds=tuple(ths), n_infeasible_folds=bad, counts=counts,
-                    values=values, prevalence=float(rp.prevalence), method=method)
+    return CrossFit(k=k, seed=int(seed), thresholds=tuple(ths), n_infeasible_folds=bad,
+                    counts=counts, values=values, prevalence=float(rp.prevalence), method=method)
 
 
 # --------------------------------------------------------------------------- Harrell
@@ -311,8 +314,9 @@ def _harrell_from(stab: ThresholdStability, method_design: str) -> HarrellCorrec
                              method=method)
 
 
-def harrell_correction(data, policy: Policy, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
-                       design: str = "cohort", chunk: int | None = None, progress=None,
+def harrell_correction(data, policy: Policy, *, n_replicates: int = DEFAULT_REPLICATES,
+                       seed: int = 0, design: str = "cohort", chunk: int | None = None,
+                       progress=None,
                        stability: ThresholdStability | None = None,
                        cells: EventCells | None = None) -> HarrellCorrection:
     """Harrell's bootstrap optimism correction of recall, precision, flag rate and cost.
@@ -328,7 +332,8 @@ def harrell_correction(data, policy: Policy, *, n_replicates: int = DEFAULT_REPL
         chooser = ReplicateChooser(cells, policy, data)
         col0 = data_choice_column(cells, choose(data, policy))
         coll = StabilityCollector(chooser, n_replicates)
-        for ch in bootstrap_counts(cells, n_replicates, seed, design, chunk=chunk, progress=progress):
+        for ch in bootstrap_counts(cells, n_replicates, seed, design, chunk=chunk,
+                                   progress=progress):
             tp, fp = ch.cumulative()
             coll.update(ch, tp, fp)
         stability = _summarise(coll, cells, col0, seed=seed, design=design, notes=chooser.notes)
@@ -426,5 +431,5 @@ def optimism(data, policy: Policy, *, threshold: float | None = None, k: int = D
         statement = ("The threshold was pre-specified (fixed before these data were seen): no "
                      "selection was made on these data, so the apparent values are honest "
                      "estimates and need no optimism correction.")
-    return Optimism(threshold_origin=origin, threshold=t, apparent=apparent, cross_fit=cf, harrell=hc,
-                    statement=statement)
+    return Optimism(threshold_origin=origin, threshold=t, apparent=apparent, cross_fit=cf,
+                    harrell=hc, statement=statement)

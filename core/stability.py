@@ -75,8 +75,8 @@ class ReplicateChooser:
             met = a.rules_all["max_flagged_per_period"]["met"]
             cols = np.concatenate([[0], cells.index])
             self.cap_ok = np.asarray(met, dtype=bool)[cols][self.cand_cols]
-            self.notes.append("the capacity-quantile rule (flags per period from score times) is held "
-                              "at its full-data limit on the threshold in every replicate")
+            self.notes.append("the capacity-quantile rule (flags per period from score times) is "
+                              "held at its full-data limit on the threshold in every replicate")
         if rp.sources.get("deployment.cases_per_period") == "data":
             self.notes.append("cases per period are held at the full-data value")
 
@@ -90,10 +90,14 @@ class ReplicateChooser:
         ``sq``: ``(tp_sq, fp_sq)`` cumulative squared weights (sampling weights).
         """
         cc = self.cand_cols
-        rp = self.rp
         R = tp.shape[0]
         P = tp[:, -1][:, None]
         N = fp[:, -1][:, None]
+        # a replicate without events (or without non-events) has no curve to choose on
+        degenerate = ~((P[:, 0] > 0) & (N[:, 0] > 0))
+        if degenerate.any():
+            P = np.where(degenerate[:, None], 1.0, P)
+            N = np.where(degenerate[:, None], 1.0, N)
         t = tp[:, cc]
         f = fp[:, cc]
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -118,7 +122,7 @@ class ReplicateChooser:
             hit = ok & (v >= best - tol)
         any_ok = ok.any(axis=1)
         first = np.argmax(hit, axis=1)
-        out = np.where(any_ok, cc[first], -1)
+        out = np.where(any_ok & ~degenerate, cc[first], -1)
         return out
 
     def _objective(self, tpr, fpr, tpp, fpp, pi, P, cost_cum):
@@ -162,21 +166,19 @@ class ReplicateChooser:
         conf = rp.confidence
         fn, tn = P - tp, N - fp
         met_all = np.ones(tp.shape, dtype=bool)
-        shape = tp.shape
         for name, lim in rp.rules.items():
             bound = None
             lower_rule = name.startswith("min_")
             with np.errstate(invalid="ignore", divide="ignore"):
-                if name == "min_recall":
-                    value = tpr
+                if name in ("min_recall", "min_specificity"):
+                    value = tpr if name == "min_recall" else 1.0 - fpr
+                    met = value >= lim - TIE_RTOL * abs(lim)
                     if conf is not None:
-                        bound = _iv.wilson_interval(tpr * n1, np.broadcast_to(n1, shape), conf,
-                                                    sided="lower")[0]
-                elif name == "min_specificity":
-                    value = 1.0 - fpr
-                    if conf is not None:
-                        bound = _iv.wilson_interval((1.0 - fpr) * n0, np.broadcast_to(n0, shape),
-                                                    conf, sided="lower")[0]
+                        met &= _wilson_bound_met(value, n1 if name == "min_recall" else n0, conf,
+                                                 lim - TIE_RTOL * abs(lim),
+                                                 rising=name == "min_recall")
+                    met_all &= met
+                    continue
                 elif name == "min_precision":
                     value = tpp / (tpp + fpp)
                     if conf is not None:
@@ -245,6 +247,41 @@ class ReplicateChooser:
         return {k: np.where(bad, np.nan, v) for k, v in out.items()}
 
 
+def _wilson_bound_met(rate, size, confidence, floor, *, rising):
+    """``wilson_lower(rate * size, size) >= floor`` at every column, found by bisection.
+
+    Along the columns ``rate`` never falls (recall; ``rising``) or never rises
+    (specificity) at a fixed size, and the Wilson lower bound rises with the
+    successes, so the columns meeting the bound are a suffix (a prefix): a
+    binary search per row evaluates the bound -- the same expression as
+    ``choose()`` -- at O(log columns) points instead of every column.
+    """
+    R, K = rate.shape
+    rows = np.arange(R)
+    n = np.broadcast_to(np.asarray(size, dtype=np.float64).reshape(-1, 1), (R, 1))[:, 0]
+
+    def ok(j):
+        r = rate[rows, j]
+        lo = _iv.wilson_interval(r * n, n, confidence, sided="lower")[0]
+        with np.errstate(invalid="ignore"):
+            good = lo >= floor
+        return good if rising else ~good
+
+    # first column where ok(j) holds (rising: the bound is met; falling: it fails)
+    lo = np.zeros(R, dtype=np.int64)
+    hi = np.full(R, K, dtype=np.int64)
+    while True:
+        act = lo < hi
+        if not act.any():
+            break
+        mid = (lo + hi) // 2
+        hit = ok(np.minimum(mid, K - 1)) & act
+        hi = np.where(hit, mid, hi)
+        lo = np.where(act & ~hit, mid + 1, lo)
+    cols = np.arange(K)[None, :]
+    return cols >= lo[:, None] if rising else cols < lo[:, None]
+
+
 class StabilityCollector:
     """Runs the chooser on every chunk of a bootstrap pass and keeps, per replicate,
     the chosen column and the values there on the replicate and on the full data."""
@@ -253,8 +290,9 @@ class StabilityCollector:
         self.chooser = chooser
         n = int(n_replicates)
         self.columns = np.full(n, -1, dtype=np.int64)
-        self.apparent = {k: np.full(n, np.nan) for k in ("recall", "precision", "flag_rate", "cost")}
-        self.on_data = {k: np.full(n, np.nan) for k in ("recall", "precision", "flag_rate", "cost")}
+        keys = ("recall", "precision", "flag_rate", "cost")
+        self.apparent = {k: np.full(n, np.nan) for k in keys}
+        self.on_data = {k: np.full(n, np.nan) for k in keys}
         cells = chooser.cells
         self._data_tp = np.concatenate([[0.0], np.cumsum(cells.events)])[None, :]
         self._data_fp = np.concatenate([[0.0], np.cumsum(cells.non_events)])[None, :]

@@ -239,8 +239,9 @@ def point_intervals(data, threshold: float, *, method: str = "wilson", confidenc
         lo, hi = _iv.npv_logit_interval(tp, fn, fp, tn, pi, confidence, **dep)
         if fn + tn <= 0:
             lo = hi = math.nan
-        out.append(Interval("npv", _LABELS["npv"], float(npv), float(lo), float(hi), float(confidence),
-                            "npv_logit", _iv.METHOD_NAMES["npv_logit"], basis, note=note))
+        out.append(Interval("npv", _LABELS["npv"], float(npv), float(lo), float(hi),
+                            float(confidence), "npv_logit", _iv.METHOD_NAMES["npv_logit"], basis,
+                            note=note))
         lo, hi = _iv.flag_rate_interval(tp, fn, fp, tn, pi, confidence, **dep)
         out.append(Interval("flag_rate", _LABELS["flag_rate"], float(fr), float(lo), float(hi),
                             float(confidence), "flag_rate", _iv.METHOD_NAMES["flag_rate"], basis,
@@ -301,7 +302,8 @@ def bootstrap_intervals(result: BootstrapResult, threshold: float, *, confidence
     if pi is not None:
         dep = c.at(t, prevalence=float(pi)).deployment
         for m in ("precision", "npv", "flag_rate"):
-            add(m, result.metric_at(t, m, prevalence=float(pi)), dep[m], f"prevalence {float(pi):.4g}")
+            add(m, result.metric_at(t, m, prevalence=float(pi)), dep[m],
+                f"prevalence {float(pi):.4g}")
     d = result.at[t]
     pi_est = float(pi) if pi is not None else c.prevalence
     if "cost" in d:
@@ -385,7 +387,8 @@ def few_events_statement(n_events: float, recall: float | None = None, *, half_w
     r = 0.5 if recall is None or not np.isfinite(recall) else float(recall)
     need = events_for_recall_half_width(r, half_width, confidence)
     now = wilson_half_width(r, n_events, confidence) if n_events > 0 else math.nan
-    where = "at the observed recall" if recall is not None and np.isfinite(recall) else "at recall 0.5"
+    observed = recall is not None and np.isfinite(recall)
+    where = "at the observed recall" if observed else "at recall 0.5"
     return (f"{FEW_EVENTS} With {n_events:,.0f} events the {confidence:.0%} Wilson interval for "
             f"recall {where} ({r:.1%}) is about +/-{now:.3f}; +/-{half_width:g} would need about "
             f"{need:,} events.")
@@ -395,8 +398,8 @@ def design_statement(design: str) -> str:
     """One sentence on the declared sampling design (for the record and memo)."""
     _check_design(design)
     if design == "cohort":
-        return ("Design: cohort -- the validation cases were sampled together, so the prevalence is "
-                "part of the sampling uncertainty; the bootstrap resamples all cases together.")
+        return ("Design: cohort -- the validation cases were sampled together, so the prevalence "
+                "is part of the sampling uncertainty; the bootstrap resamples all cases together.")
     return ("Design: case-control -- events and non-events were sampled separately; the sample "
             "prevalence carries no information, predictive values are given at a prevalence taken "
             "as known, and the bootstrap resamples within each class.")
@@ -463,8 +466,9 @@ class Evidence:
         })
 
 
-def evidence(data, policy, *, threshold: float | None = None, n_replicates: int = DEFAULT_REPLICATES,
-             seed: int = 0, design: str = "cohort", method: str = "wilson", confidence: float = 0.95,
+def evidence(data, policy, *, threshold: float | None = None,
+             n_replicates: int = DEFAULT_REPLICATES, seed: int = 0, design: str = "cohort",
+             method: str = "wilson", confidence: float = 0.95,
              k: int = 5, recall_grid=DEFAULT_RECALL_GRID, fpr_grid=DEFAULT_FPR_GRID,
              chunk: int | None = None, progress=None, sampling_weights: str = "rows") -> Evidence:
     """The whole Evidence for ``data`` under ``policy`` in one bootstrap pass.
@@ -538,8 +542,8 @@ def evidence(data, policy, *, threshold: float | None = None, n_replicates: int 
         statement = ("The threshold was pre-specified (fixed before these data were seen): no "
                      "selection was made on these data, so the apparent values are honest "
                      "estimates and need no optimism correction.")
-    opt = Optimism(threshold_origin=origin, threshold=t, apparent=apparent, cross_fit=cf, harrell=hc,
-                   statement=statement)
+    opt = Optimism(threshold_origin=origin, threshold=t, apparent=apparent, cross_fit=cf,
+                   harrell=hc, statement=statement)
     rec = None if ch.point is None else ch.point.validation["recall"]
     few = few_events_statement(curve.n_events, rec, confidence=confidence)
     need = events_for_recall_half_width(rec if rec is not None and np.isfinite(rec) else 0.5,
@@ -548,7 +552,8 @@ def evidence(data, policy, *, threshold: float | None = None, n_replicates: int 
                   f"Bootstrap: {res.describe()}.", statement]
     statements.extend(stab.notes)
     statements.extend(res.notes)
-    return Evidence(threshold=t, threshold_origin=origin, design=design, confidence=float(confidence),
+    return Evidence(threshold=t, threshold_origin=origin, design=design,
+                    confidence=float(confidence),
                     method=method, n_replicates=int(n_replicates), seed=int(seed),
                     n_events=float(curve.n_events), analytic=tuple(analytic), bootstrap=tuple(boot),
                     curve=tuple(curve_intervals(res, confidence=confidence)), bands=bands,

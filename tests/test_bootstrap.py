@@ -132,6 +132,17 @@ def test_replicate_statistics_equal_the_replicate_curve():
             assert fn[i, 0] + tn[i, 0] == np.sum(~flagged)
 
 
+def test_one_pass_statistics_equal_the_public_functions():
+    y, s = _small(13, n=1500, prevalence=0.05, decimals=1)
+    c = sweep(y, s)
+    res = bootstrap(c, n_replicates=60, seed=2, chunk=25)
+    tp, fp = np.vstack([np.hstack(ch.cumulative()) for ch in bootstrap_counts(res.cells, 60, 2)]), None
+    width = res.cells.n_cells + 1
+    tp, fp = tp[:, :width], tp[:, width:]
+    np.testing.assert_allclose(res.average_precision, average_precision(tp, fp), rtol=1e-12)
+    np.testing.assert_allclose(res.roc_auc, roc_auc(tp, fp), rtol=1e-12)
+
+
 def test_threshold_off_the_boundaries_is_refused():
     y, s = _small(4, n=500, decimals=None)
     c = sweep(y, s)
@@ -173,6 +184,8 @@ def test_chunking_and_start_change_nothing():
     for chunk in (1, 4, 7):
         e = np.vstack([ch.events for ch in bootstrap_counts(cells, 23, seed=3, chunk=chunk)])
         np.testing.assert_array_equal(e, e_full)
+    threads = np.vstack([ch.events for ch in bootstrap_counts(cells, 23, seed=3, chunk=5, n_jobs=2)])
+    np.testing.assert_array_equal(threads, e_full)
     tail = np.vstack([ch.events for ch in bootstrap_counts(cells, 8, seed=3, start=15)])
     np.testing.assert_array_equal(tail, e_full[15:])
     seen = []
