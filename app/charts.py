@@ -60,7 +60,7 @@ def pr_figure(curve: Curve, point: int, *, pinned: int | None = None,
     fig.add_trace(go.Scatter(
         x=rec, y=prec, mode="lines+markers", name="Model", customdata=idx,
         line=dict(color=PALETTE["blue"], width=2), marker=dict(size=4, color=PALETTE["blue"]),
-        hovertemplate="recall %{x:.3f}<br>precision %{y:.3f}<extra></extra>"))
+        hovertemplate="point %{customdata:,}<br>recall %{x:.3f}<br>precision %{y:.3f}<extra></extra>"))
     fig.add_trace(go.Scatter(
         x=[0, 1], y=[curve.prevalence] * 2, mode="lines", name=f"Baseline: prevalence {curve.prevalence:.2%}",
         line=dict(color=PALETTE["grey"], dash="dash"), hoverinfo="skip"))
@@ -86,7 +86,7 @@ def roc_figure(curve: Curve, point: int, *, pinned: int | None = None,
     fig.add_trace(go.Scatter(
         x=curve.fpr[idx], y=curve.recall[idx], mode="lines+markers", name="Model", customdata=idx,
         line=dict(color=PALETTE["blue"], width=2), marker=dict(size=4, color=PALETTE["blue"]),
-        hovertemplate="FPR %{x:.4f}<br>recall %{y:.3f}<extra></extra>"))
+        hovertemplate="point %{customdata:,}<br>FPR %{x:.4f}<br>recall %{y:.3f}<extra></extra>"))
     fig.add_trace(go.Scatter(x=[0, 1], y=[0, 1], mode="lines", name="Chance (AUC 0.5)",
                              line=dict(color=PALETTE["grey"], dash="dash"), hoverinfo="skip"))
     fig.add_trace(_marker_trace(curve.fpr[point], curve.recall[point], "Operating point", _POINT,

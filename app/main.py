@@ -17,10 +17,10 @@ st.set_page_config(page_title="Fulcrum", layout="wide", initial_sidebar_state="e
 state.init()
 
 
-def sidebar() -> None:
+def sidebar(box) -> None:
     act = state.active()
     ds = act.dataset
-    with st.sidebar:
+    with box:
         st.markdown("### Fulcrum")
         st.markdown(f"**Active data:** {act.label}")
         c1, c2 = st.columns(2)
@@ -40,5 +40,6 @@ PAGES = [
 ]
 
 page = st.navigation(PAGES, position="sidebar")
-sidebar()
+box = st.sidebar.container()
 page.run()
+sidebar(box)  # after the page, so a dataset or point the page just changed is shown

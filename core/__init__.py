@@ -29,3 +29,10 @@ from core.policy import (Costs, Deployment, Fairness, Objective, Policy, PolicyE
 __all__ += ["Choice", "PointReport", "RuleCheck", "choose", "cost_by_threshold", "evaluate", "Costs",
             "Deployment", "Fairness", "Objective", "Policy", "PolicyError", "Rules", "dumps_policy",
             "load_policy", "loads_policy", "resolve_policy", "save_policy"]
+
+from core.intake import (DEMOS, label_values, load_count_table, load_dataset, load_demo,  # noqa: E402
+                         suggest_mapping)
+from core.reading import RawTable, ReadInfo, read_table  # noqa: E402
+
+__all__ += ["DEMOS", "label_values", "load_count_table", "load_dataset", "load_demo", "suggest_mapping",
+            "RawTable", "ReadInfo", "read_table"]

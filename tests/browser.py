@@ -95,15 +95,23 @@ def browser():
 
 
 def wait_idle(page, timeout: float = 60_000) -> None:
-    """Wait until Streamlit has finished the current run (its status indicator is gone)."""
-    page.wait_for_selector('[data-testid="stApp"]', timeout=timeout)
-    # the running indicator appears while a script run is in progress
+    """Wait until Streamlit has finished the current run.
+
+    Streamlit's running-status indicator: the app root carries the script
+    state (``data-test-script-state``: running / notRunning) and the header's
+    status widget shows its running icon while a run is in progress; stale
+    elements from the previous run are marked ``data-stale="true"``.
+    """
     page.wait_for_function(
         """() => {
-            const w = document.querySelector('[data-testid="stStatusWidget"]');
             const app = document.querySelector('[data-testid="stApp"]');
+            if (!app) return false;
+            const state = app.getAttribute('data-test-script-state');
+            const running = document.querySelector('[data-testid="stStatusWidgetRunningIcon"],'
+                                                   + '[data-testid="stStatusWidgetRunningManIcon"]');
             const stale = document.querySelector('[data-stale="true"]');
-            return app && (!w || w.innerText.trim() === '') && !stale;
+            const skeleton = document.querySelector('[data-testid="stSkeleton"]');
+            return state === 'notRunning' && !running && !stale && !skeleton;
         }""", timeout=timeout)
 
 

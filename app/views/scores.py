@@ -68,12 +68,17 @@ def _mapping_form(raw):
     label_default = guess.label if guess.label in cols else cols[min(1, len(cols) - 1)]
     label = c2.selectbox("Label column (the outcome)", cols, index=cols.index(label_default), key="map_label")
     values = label_values(raw, label)
-    value_names = [str(v) for v in values["value"].tolist()] if hasattr(values, "columns") else \
-        [str(v) for v in values]
+    present = values[~values["missing"]]
+    value_names = [str(v) for v in present["text"].tolist()]
+    counts = dict(zip(value_names, present["rows"].tolist()))
     pos_default = str(guess.positive_label) if guess.label == label and guess.positive_label is not None else None
     pos_index = value_names.index(pos_default) if pos_default in value_names else max(len(value_names) - 1, 0)
     positive = c3.selectbox("Which value is the event?", value_names, index=pos_index, key="map_positive",
+                            format_func=lambda v: f"{v} ({counts[v]:,} rows)",
                             help="The rare outcome the score should flag.") if value_names else None
+    if values["missing"].any():
+        c3.caption(f"{int(values.loc[values['missing'], 'rows'].sum()):,} rows have no label: loading "
+                   "will name them.")
     with st.expander("Optional columns: weights, groups, repeated cases, times, costs"):
         o1, o2 = st.columns(2)
         weight = _optional("Weight column", cols, "map_weight", guess.weight)

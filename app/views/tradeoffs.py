@@ -17,13 +17,17 @@ ENTRY = "tradeoffs_threshold"
 
 
 def _on_slider() -> None:
+    st.session_state["tradeoffs_last_entry"] = None
     state.set_point(st.session_state[SLIDER])
 
 
 def _on_entry() -> None:
+    """Go to the typed threshold, then clear the box (it is an entry, not a second display)."""
     value = st.session_state[ENTRY]
     if value is not None:
         state.set_point(state.dataset().curve().index_at(float(value)))
+        st.session_state["tradeoffs_last_entry"] = float(value)
+        st.session_state[ENTRY] = None
 
 
 def _on_chart_select(key: str) -> None:
@@ -42,6 +46,7 @@ def _on_chart_select(key: str) -> None:
     if isinstance(cd, list):
         cd = cd[0]
     if cd is not None:
+        st.session_state["tradeoffs_last_entry"] = None
         state.set_point(int(cd))
 
 
@@ -63,10 +68,10 @@ def render() -> None:
     caution_line()
     few_events_note(ds)
 
-    # keep the widgets in step with the shared point before they are drawn
-    st.session_state[SLIDER] = k
-    t_k = float(curve.thresholds[k])
-    st.session_state[ENTRY] = t_k if np.isfinite(t_k) else None
+    # keep the widgets in step with the shared point before they are drawn; write a widget
+    # only when the point was moved elsewhere, so fast keyboard input is never pushed back
+    if st.session_state.get(SLIDER) != k:
+        st.session_state[SLIDER] = k
 
     c1, c2 = st.columns([3, 1])
     with c1:
@@ -74,13 +79,16 @@ def render() -> None:
                   key=SLIDER, on_change=_on_slider,
                   help="Each step is one distinct score: cases with tied scores move together.")
     with c2:
-        st.number_input(f"Threshold ({score_label})", key=ENTRY, on_change=_on_entry, format="%.6g",
-                        step=None, placeholder="flag none",
-                        help="Any real value: the exact counts at that threshold are shown.")
-    p = curve.point(k)
+        st.number_input(f"Go to threshold ({score_label})", key=ENTRY, on_change=_on_entry, value=None,
+                        format="%.10g", step=None, placeholder="type a threshold, press Enter",
+                        help="Any real value in score units: the point moves to the exact counts "
+                             "at that threshold.")
+    typed = st.session_state.get("tradeoffs_last_entry")
+    p = curve.point(k, threshold=typed if typed is not None and curve.index_at(typed) == k else None)
     direction = "≥" if curve.higher_is_riskier else "≤"
     st.markdown(
-        f"**Threshold {fmt.threshold(p.point_threshold)}** — a case is flagged when {score_label} "
+        (f"You entered {fmt.threshold(p.threshold)}. " if p.threshold != p.point_threshold else "")
+        + f"**Threshold {fmt.threshold(p.point_threshold)}** — a case is flagged when {score_label} "
         f"{direction} threshold. Every threshold in {fmt.interval(p.interval_low, p.interval_high, p.closed)} "
         f"gives these counts. Point {k:,} of {curve.n_points - 1:,}.")
 
