@@ -60,7 +60,7 @@ def check_tiles(page, curve, k: int) -> None:
 
 def test_point_moves_by_keyboard_mouse_and_click_and_survives_page_switches(app_url, curve):
     with browser() as b:
-        page = b.new_page(viewport={"width": 1400, "height": 1000})
+        page = b.new_page(viewport={"width": 1400, "height": 2600})
         page.goto(app_url)
         wait_idle(page)
         assert "Corvane Health" in page.locator('[data-testid="stSidebar"]').inner_text()

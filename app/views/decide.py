@@ -76,14 +76,38 @@ def _move_to(index: int) -> None:
 def render() -> None:
     act = state.active()
     ds = act.dataset
-    curve = ds.curve()
     st.title("Decide")
     st.info(cautions.FULL, icon="⚠")
     few_events_note(ds)
 
-    policy = policy_form.render(ds)
+    results = st.container()
+    with st.expander("Policy: objective, costs, deployment and rules (edit, load or save)",
+                     expanded=False):
+        policy = policy_form.render(ds)
     if policy is None:
+        results.error("The policy has problems (open the policy editor below to fix them).")
         return
+    with results:
+        _results(ds, act, policy)
+
+
+def _policy_line(rp) -> str:
+    parts = [f"objective: {rp.objective.replace('_', ' ')}"]
+    if rp.costs_given:
+        fn = (f"each miss costs its own {rp.false_negative_column}" if rp.case_dependent_costs
+              else f"a miss costs {fmt.num(rp.false_negative, 2)}")
+        parts.append(f"a false alarm costs {fmt.num(rp.false_positive, 2)}, {fn} {rp.unit}")
+    parts.append(f"deployment prevalence {fmt.pct(rp.prevalence, 2)}")
+    for name, lim in rp.rules.items():
+        w = fmt.pct(lim) if name != "max_flagged_per_period" else fmt.num(lim, 0)
+        parts.append(f"{RULE_LABELS[name]} {w}")
+    if rp.confidence:
+        parts.append(f"rules judged at {fmt.pct(rp.confidence, 0)} confidence")
+    return "Policy in force — " + "; ".join(parts) + "."
+
+
+def _results(ds, act, policy) -> None:
+    curve = ds.curve()
     text = dumps_policy(policy)
     calibrated = False
     if ds.scores_in_unit_interval:
@@ -96,6 +120,7 @@ def render() -> None:
         return
     rp = choice.resolved
     unit = rp.unit
+    st.caption(_policy_line(rp))
 
     st.header("Recommended operating point")
     if choice.point is None:

@@ -159,12 +159,13 @@ def _summary() -> None:
     ds = act.dataset
     st.subheader(f"Summary: {act.label}")
     lo, hi = ds.score_range
-    c = st.columns(5)
+    c = st.columns(6)
     c[0].metric("Cases", fmt.count(ds.n_rows))
     c[1].metric("Events", fmt.count(ds.n_events))
     c[2].metric("Prevalence", fmt.pct(ds.prevalence, 2))
-    c[3].metric("Score range", f"{fmt.num(lo, 3)} to {fmt.num(hi, 3)}")
-    c[4].metric("Distinct scores", fmt.count(ds.curve().n_points - 1))
+    c[3].metric("Lowest score", f"{lo:.4g}")
+    c[4].metric("Highest score", f"{hi:.4g}")
+    c[5].metric("Distinct scores", fmt.count(ds.curve().n_points - 1))
     st.caption(f"Fingerprint (SHA-256 of the mapped data and mapping): `{ds.fingerprint}`")
     if ds.dropped_rows:
         st.warning(f"{fmt.count(ds.dropped_rows)} rows with a missing score were dropped at your request; "

@@ -80,7 +80,7 @@ def render() -> None:
                   help="Each step is one distinct score: cases with tied scores move together.")
     with c2:
         st.number_input(f"Go to threshold ({score_label})", key=ENTRY, on_change=_on_entry, value=None,
-                        format="%.10g", step=None, placeholder="type a threshold, press Enter",
+                        format="%.10g", step=None, placeholder="e.g. 0.25, then Enter",
                         help="Any real value in score units: the point moves to the exact counts "
                              "at that threshold.")
     typed = st.session_state.get("tradeoffs_last_entry")
