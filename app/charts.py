@@ -34,77 +34,96 @@ _POINT = dict(symbol="diamond", size=14, color=PALETTE["black"], line=dict(width
 _PINNED = dict(symbol="circle-open", size=16, color=PALETTE["vermillion"], line=dict(width=3))
 
 
-def _layout(fig: go.Figure, title: str, x: str, y: str, *, height: int = 420, **kw) -> go.Figure:
-    fig.update_layout(
+def _figure(traces: list[dict], title: str, x: str, y: str, *, height: int = 420, xaxis=None, yaxis=None,
+            shapes=(), annotations=(), **layout) -> go.Figure:
+    """Assemble a figure from plain trace dicts without Plotly's per-property validation.
+
+    Validation costs tens of milliseconds per figure and the point moves on
+    every rerun; the tests validate every builder's output instead.
+    """
+    lay = dict(
         title=dict(text=title, x=0.0, xanchor="left"), height=height,
         margin=dict(l=60, r=20, t=60, b=55), legend=dict(orientation="h", y=-0.2),
-        hovermode="closest", template="plotly_white", **kw)
-    fig.update_xaxes(title_text=x)
-    fig.update_yaxes(title_text=y)
-    return fig
+        hovermode="closest",
+        xaxis=dict(title=dict(text=x), **(xaxis or {})), yaxis=dict(title=dict(text=y), **(yaxis or {})),
+        shapes=list(shapes), annotations=list(annotations), **layout)
+    return go.Figure(data=traces, layout=lay, _validate=False)
+
+
+def _vline(x: float, color: str, *, dash: str = "solid", label: str = "", where: str = "right"):
+    shape = dict(type="line", xref="x", yref="paper", x0=x, x1=x, y0=0, y1=1,
+                 line=dict(color=color, width=2, dash=dash))
+    ann = dict(x=x, y=1.0, xref="x", yref="paper", text=label, showarrow=False, yanchor="bottom",
+               xanchor="left" if where == "right" else "right", font=dict(size=11))
+    return shape, ann
+
+
+def _hline(y: float, color: str, *, dash: str = "dash", label: str = ""):
+    shape = dict(type="line", xref="paper", yref="y", x0=0, x1=1, y0=y, y1=y,
+                 line=dict(color=color, width=2, dash=dash))
+    ann = dict(x=0, y=y, xref="paper", yref="y", text=label, showarrow=False, yanchor="bottom",
+               xanchor="left", font=dict(size=11))
+    return shape, ann
 
 
 def _marker_trace(x, y, name, style, text):
-    return go.Scatter(x=[x], y=[y], mode="markers", name=name, marker=style, hovertext=[text],
-                      hoverinfo="text", showlegend=True)
+    return dict(type="scatter", x=[float(x)], y=[float(y)], mode="markers", name=name, marker=style,
+                hovertext=[text], hoverinfo="text", showlegend=True)
 
 
-def pr_figure(curve: Curve, point: int, *, pinned: int | None = None,
+def thin(curve: Curve, space: str, max_points: int = MAX_POINTS) -> np.ndarray:
+    """The points drawn for a curve (markers for the operating point are separate traces)."""
+    return curve.downsample(max_points, space=space)
+
+
+def _keep_marker(x, y) -> bool:
+    return np.isfinite(x) and np.isfinite(y)
+
+
+def pr_figure(curve: Curve, point: int, *, pinned: int | None = None, idx=None,
               max_points: int = MAX_POINTS) -> go.Figure:
     """Precision against recall, with the prevalence baseline (Saito & Rehmsmeier 2015)."""
-    keep = [point] + ([pinned] if pinned is not None else [])
-    idx = curve.downsample(max_points, keep=keep, space="pr")
+    idx = thin(curve, "pr", max_points) if idx is None else idx
     idx = idx[idx > 0]  # "flag none" has no precision (0/0)
-    rec, prec = curve.recall[idx], curve.precision[idx]
-    fig = go.Figure()
-    fig.add_trace(go.Scatter(
-        x=rec, y=prec, mode="lines+markers", name="Model", customdata=idx,
-        line=dict(color=PALETTE["blue"], width=2), marker=dict(size=4, color=PALETTE["blue"]),
-        hovertemplate="point %{customdata:,}<br>recall %{x:.3f}<br>precision %{y:.3f}<extra></extra>"))
-    fig.add_trace(go.Scatter(
-        x=[0, 1], y=[curve.prevalence] * 2, mode="lines", name=f"Baseline: prevalence {curve.prevalence:.2%}",
-        line=dict(color=PALETTE["grey"], dash="dash"), hoverinfo="skip"))
-    if point > 0:
-        fig.add_trace(_marker_trace(curve.recall[point], curve.precision[point], "Operating point",
-                                    _POINT, "operating point"))
-    if pinned is not None and pinned > 0:
-        fig.add_trace(_marker_trace(curve.recall[pinned], curve.precision[pinned], "Pinned point A",
-                                    _PINNED, "pinned A"))
-    _layout(fig, f"Precision–recall curve (average precision {curve.average_precision:.3f})",
-            "Recall (share of events flagged)", "Precision (share of flags that are events)")
-    fig.update_xaxes(range=[-0.02, 1.02])
-    fig.update_yaxes(range=[-0.02, 1.02])
-    return fig
+    traces = [
+        dict(type="scatter", x=curve.recall[idx], y=curve.precision[idx], mode="lines+markers", name="Model",
+             customdata=idx, line=dict(color=PALETTE["blue"], width=2), marker=dict(size=4, color=PALETTE["blue"]),
+             hovertemplate="point %{customdata:,}<br>recall %{x:.3f}<br>precision %{y:.3f}<extra></extra>"),
+        dict(type="scatter", x=[0, 1], y=[curve.prevalence] * 2, mode="lines",
+             name=f"Baseline: prevalence {curve.prevalence:.2%}", line=dict(color=PALETTE["grey"], dash="dash"),
+             hoverinfo="skip"),
+    ]
+    for k, name, style in ((point, "Operating point", _POINT), (pinned, "Pinned point A", _PINNED)):
+        if k is not None and k > 0 and _keep_marker(curve.recall[k], curve.precision[k]):
+            traces.append(_marker_trace(curve.recall[k], curve.precision[k], name, style, name.lower()))
+    return _figure(traces, f"Precision–recall curve (average precision {curve.average_precision:.3f})",
+                   "Recall (share of events flagged)", "Precision (share of flags that are events)",
+                   xaxis=dict(range=[-0.02, 1.02]), yaxis=dict(range=[-0.02, 1.02]))
 
 
-def roc_figure(curve: Curve, point: int, *, pinned: int | None = None,
+def roc_figure(curve: Curve, point: int, *, pinned: int | None = None, idx=None,
                max_points: int = MAX_POINTS) -> go.Figure:
     """True-positive rate against false-positive rate, with the chance line."""
-    keep = [point] + ([pinned] if pinned is not None else [])
-    idx = curve.downsample(max_points, keep=keep, space="roc")
-    fig = go.Figure()
-    fig.add_trace(go.Scatter(
-        x=curve.fpr[idx], y=curve.recall[idx], mode="lines+markers", name="Model", customdata=idx,
-        line=dict(color=PALETTE["blue"], width=2), marker=dict(size=4, color=PALETTE["blue"]),
-        hovertemplate="point %{customdata:,}<br>FPR %{x:.4f}<br>recall %{y:.3f}<extra></extra>"))
-    fig.add_trace(go.Scatter(x=[0, 1], y=[0, 1], mode="lines", name="Chance (AUC 0.5)",
-                             line=dict(color=PALETTE["grey"], dash="dash"), hoverinfo="skip"))
-    fig.add_trace(_marker_trace(curve.fpr[point], curve.recall[point], "Operating point", _POINT,
-                                "operating point"))
-    if pinned is not None:
-        fig.add_trace(_marker_trace(curve.fpr[pinned], curve.recall[pinned], "Pinned point A",
-                                    _PINNED, "pinned A"))
-    _layout(fig, f"ROC curve (AUC {curve.roc_auc:.3f})", "False-positive rate (1 − specificity)",
-            "Recall (true-positive rate)")
-    fig.update_xaxes(range=[-0.02, 1.02])
-    fig.update_yaxes(range=[-0.02, 1.02])
-    return fig
+    idx = thin(curve, "roc", max_points) if idx is None else idx
+    traces = [
+        dict(type="scatter", x=curve.fpr[idx], y=curve.recall[idx], mode="lines+markers", name="Model",
+             customdata=idx, line=dict(color=PALETTE["blue"], width=2), marker=dict(size=4, color=PALETTE["blue"]),
+             hovertemplate="point %{customdata:,}<br>FPR %{x:.4f}<br>recall %{y:.3f}<extra></extra>"),
+        dict(type="scatter", x=[0, 1], y=[0, 1], mode="lines", name="Chance (AUC 0.5)",
+             line=dict(color=PALETTE["grey"], dash="dash"), hoverinfo="skip"),
+    ]
+    for k, name, style in ((point, "Operating point", _POINT), (pinned, "Pinned point A", _PINNED)):
+        if k is not None:
+            traces.append(_marker_trace(curve.fpr[k], curve.recall[k], name, style, name.lower()))
+    return _figure(traces, f"ROC curve (AUC {curve.roc_auc:.3f})", "False-positive rate (1 − specificity)",
+                   "Recall (true-positive rate)", xaxis=dict(range=[-0.02, 1.02]),
+                   yaxis=dict(range=[-0.02, 1.02]))
 
 
-def metrics_figure(curve: Curve, point: int, *, score_label: str = "score",
+def metrics_figure(curve: Curve, point: int, *, score_label: str = "score", idx=None,
                    max_points: int = MAX_POINTS) -> go.Figure:
     """Precision, recall, specificity and flag rate against the threshold."""
-    idx = curve.downsample(max_points, keep=[point], space="roc")
+    idx = thin(curve, "roc", max_points) if idx is None else idx
     idx = idx[idx > 0]
     th = curve.thresholds[idx]
     series = [
@@ -113,41 +132,39 @@ def metrics_figure(curve: Curve, point: int, *, score_label: str = "score",
         ("Specificity", curve.specificity, PALETTE["green"], "dot"),
         ("Flag rate", curve.flag_rate, PALETTE["purple"], "dashdot"),
     ]
-    fig = go.Figure()
-    for name, values, color, dash in series:
-        fig.add_trace(go.Scatter(x=th, y=values[idx], mode="lines", name=name, customdata=idx,
-                                 line=dict(color=color, dash=dash, width=2),
-                                 hovertemplate=f"{name} %{{y:.3f}} at threshold %{{x}}<extra></extra>"))
+    traces = [dict(type="scatter", x=th, y=values[idx], mode="lines", name=name, customdata=idx,
+                   line=dict(color=color, dash=dash, width=2),
+                   hovertemplate=f"{name} %{{y:.3f}} at threshold %{{x}}<extra></extra>")
+              for name, values, color, dash in series]
+    shapes, anns = [], []
     if point > 0:
-        fig.add_vline(x=float(curve.thresholds[point]), line=dict(color=PALETTE["black"], width=2),
-                      annotation_text="threshold", annotation_position="top")
-    direction = "flagged when score ≥ threshold" if curve.higher_is_riskier else \
-        "flagged when score ≤ threshold"
-    _layout(fig, "Metrics against the threshold", f"Threshold ({score_label}; {direction})",
-            "Share (0–1)")
-    fig.update_yaxes(range=[-0.02, 1.02])
-    return fig
+        sh, an = _vline(float(curve.thresholds[point]), PALETTE["black"], label="threshold")
+        shapes.append(sh)
+        anns.append(an)
+    direction = "flagged when score ≥ threshold" if curve.higher_is_riskier else "flagged when score ≤ threshold"
+    return _figure(traces, "Metrics against the threshold", f"Threshold ({score_label}; {direction})",
+                   "Share (0–1)", yaxis=dict(range=[-0.02, 1.02]), shapes=shapes, annotations=anns)
 
 
 def distribution_figure(hist, threshold: float | None, *, log_counts: bool = False,
                         score_label: str = "score") -> go.Figure:
     """Score distributions of events and non-events (a ``core.summaries.ClassHistogram``)."""
-    fig = go.Figure()
-    fig.add_trace(go.Bar(x=hist.centers, y=hist.non_events, width=hist.widths, name="Non-events",
-                         marker=dict(color=PALETTE["sky"], line=dict(width=0)), opacity=0.75,
-                         hovertemplate="score %{x:.3f}: %{y:,.0f} non-events<extra></extra>"))
-    fig.add_trace(go.Bar(x=hist.centers, y=hist.events, width=hist.widths, name="Events",
-                         marker=dict(color=PALETTE["vermillion"], pattern=dict(shape="/"),
-                                     line=dict(width=0)), opacity=0.9,
-                         hovertemplate="score %{x:.3f}: %{y:,.0f} events<extra></extra>"))
+    traces = [
+        dict(type="bar", x=hist.centers, y=hist.non_events, width=hist.widths, name="Non-events",
+             marker=dict(color=PALETTE["sky"], line=dict(width=0)), opacity=0.75,
+             hovertemplate="score %{x:.3f}: %{y:,.0f} non-events<extra></extra>"),
+        dict(type="bar", x=hist.centers, y=hist.events, width=hist.widths, name="Events",
+             marker=dict(color=PALETTE["vermillion"], pattern=dict(shape="/"), line=dict(width=0)),
+             opacity=0.9, hovertemplate="score %{x:.3f}: %{y:,.0f} events<extra></extra>"),
+    ]
+    shapes, anns = [], []
     if threshold is not None and np.isfinite(threshold):
-        fig.add_vline(x=float(threshold), line=dict(color=PALETTE["black"], width=2),
-                      annotation_text="threshold", annotation_position="top")
-    _layout(fig, "Score distribution by class", f"Score ({score_label})",
-            "Cases per bin" + (" (log scale)" if log_counts else ""), barmode="overlay", height=360)
-    if log_counts:
-        fig.update_yaxes(type="log")
-    return fig
+        sh, an = _vline(float(threshold), PALETTE["black"], label="threshold")
+        shapes.append(sh)
+        anns.append(an)
+    return _figure(traces, "Score distribution by class", f"Score ({score_label})",
+                   "Cases per bin" + (" (log scale)" if log_counts else ""), height=360, barmode="overlay",
+                   yaxis=dict(type="log") if log_counts else None, shapes=shapes, annotations=anns)
 
 
 def cost_figure(thresholds, cost, *, point_threshold=None, optimum_threshold=None, unit: str = "",
@@ -156,66 +173,73 @@ def cost_figure(thresholds, cost, *, point_threshold=None, optimum_threshold=Non
     th = np.asarray(thresholds, dtype=float)
     c = np.asarray(cost, dtype=float)
     finite = np.isfinite(th)
-    fig = go.Figure()
-    fig.add_trace(go.Scatter(x=th[finite], y=c[finite], mode="lines", name="Expected cost",
-                             line=dict(color=PALETTE["blue"], width=2),
-                             hovertemplate="threshold %{x}<br>cost %{y:,.4f}<extra></extra>"))
-    if optimum_threshold is not None and np.isfinite(optimum_threshold):
-        fig.add_vline(x=float(optimum_threshold), line=dict(color=PALETTE["green"], dash="dash", width=2),
-                      annotation_text="lowest cost", annotation_position="top left")
-    if point_threshold is not None and np.isfinite(point_threshold):
-        fig.add_vline(x=float(point_threshold), line=dict(color=PALETTE["black"], width=2),
-                      annotation_text="current point", annotation_position="top right")
+    traces = [dict(type="scatter", x=th[finite], y=c[finite], mode="lines", name="Expected cost",
+                   line=dict(color=PALETTE["blue"], width=2),
+                   hovertemplate="threshold %{x}<br>cost %{y:,.4f}<extra></extra>")]
+    shapes, anns = [], []
+    for t, color, dash, label, where in ((optimum_threshold, PALETTE["green"], "dash", "recommended", "left"),
+                                         (point_threshold, PALETTE["black"], "solid", "current point", "right")):
+        if t is not None and np.isfinite(t):
+            sh, an = _vline(float(t), color, dash=dash, label=label, where=where)
+            shapes.append(sh)
+            anns.append(an)
     u = f" ({unit} per {per})" if unit else f" (per {per})"
-    _layout(fig, "Expected cost against the threshold", f"Threshold ({score_label})", "Expected cost" + u)
-    return fig
+    return _figure(traces, "Expected cost against the threshold", f"Threshold ({score_label})",
+                   "Expected cost" + u, shapes=shapes, annotations=anns)
 
 
 def cost_ratio_figure(ratios, thresholds, *, chosen_range=None, implied_range=None,
                       score_label: str = "score") -> go.Figure:
     """Cost-optimal threshold as the miss/false-alarm cost ratio runs from 1 to 1,000."""
-    fig = go.Figure()
     th = np.asarray(thresholds, dtype=float)
-    fig.add_trace(go.Scatter(x=ratios, y=np.where(np.isfinite(th), th, np.nan), mode="lines",
-                             line=dict(color=PALETTE["blue"], width=2, shape="hv"),
-                             name="Cost-optimal threshold",
-                             hovertemplate="ratio %{x:,.1f}: threshold %{y}<extra></extra>"))
-    for rng, name, color in ((chosen_range, "Chosen point optimal", PALETTE["green"]),
-                             (implied_range, "Current point optimal", PALETTE["orange"])):
+    traces = [dict(type="scatter", x=np.asarray(ratios, dtype=float), y=np.where(np.isfinite(th), th, np.nan),
+                   mode="lines", line=dict(color=PALETTE["blue"], width=2, shape="hv"),
+                   name="Cost-optimal threshold", hovertemplate="ratio %{x:,.1f}: threshold %{y}<extra></extra>")]
+    shapes, anns = [], []
+    top = float(np.max(ratios))
+    for rng, name, color in ((chosen_range, "recommended point optimal", PALETTE["green"]),
+                             (implied_range, "current point optimal", PALETTE["orange"])):
         if rng is not None and rng[0] is not None and np.isfinite(rng[0]):
-            hi = rng[1] if rng[1] is not None and np.isfinite(rng[1]) else max(ratios)
-            fig.add_vrect(x0=rng[0], x1=hi, fillcolor=color, opacity=0.18, line_width=0,
-                          annotation_text=name, annotation_position="top left")
-    _layout(fig, "Which threshold each cost ratio favours", "Cost of a miss ÷ cost of a false alarm (log scale)",
-            f"Cost-optimal threshold ({score_label})")
-    fig.update_xaxes(type="log")
-    return fig
+            hi = rng[1] if rng[1] is not None and np.isfinite(rng[1]) else top
+            lo = max(float(rng[0]), float(np.min(ratios)))
+            shapes.append(dict(type="rect", xref="x", yref="paper", x0=lo, x1=min(hi, top), y0=0, y1=1,
+                               fillcolor=color, opacity=0.18, line=dict(width=0)))
+            anns.append(dict(x=np.log10(lo) if lo > 0 else 0, y=1.0, xref="x", yref="paper", text=name,
+                             showarrow=False, xanchor="left", yanchor="bottom", font=dict(size=11)))
+    return _figure(traces, "Which threshold each cost ratio favours",
+                   "Cost of a miss ÷ cost of a false alarm (log scale)", f"Cost-optimal threshold ({score_label})",
+                   xaxis=dict(type="log"), shapes=shapes, annotations=anns)
 
 
 def decision_curve_figure(p_t, model, treat_all, *, current=None) -> go.Figure:
     """Net benefit against threshold probability (Vickers & Elkin 2006)."""
-    fig = go.Figure()
-    fig.add_trace(go.Scatter(x=p_t, y=model, mode="lines", name="Model", line=dict(color=PALETTE["blue"], width=2)))
-    fig.add_trace(go.Scatter(x=p_t, y=treat_all, mode="lines", name="Treat all",
-                             line=dict(color=PALETTE["vermillion"], dash="dash")))
-    fig.add_trace(go.Scatter(x=[min(p_t), max(p_t)], y=[0, 0], mode="lines", name="Treat none",
-                             line=dict(color=PALETTE["grey"], dash="dot")))
+    p_t = np.asarray(p_t, dtype=float)
+    traces = [
+        dict(type="scatter", x=p_t, y=np.asarray(model, dtype=float), mode="lines", name="Model",
+             line=dict(color=PALETTE["blue"], width=2)),
+        dict(type="scatter", x=p_t, y=np.asarray(treat_all, dtype=float), mode="lines", name="Treat all",
+             line=dict(color=PALETTE["vermillion"], dash="dash")),
+        dict(type="scatter", x=[float(p_t.min()), float(p_t.max())], y=[0, 0], mode="lines", name="Treat none",
+             line=dict(color=PALETTE["grey"], dash="dot")),
+    ]
+    shapes, anns = [], []
     if current is not None:
-        fig.add_vline(x=float(current), line=dict(color=PALETTE["black"], width=2))
-    ymax = float(np.nanmax(model)) if np.size(model) else 0.0
-    _layout(fig, "Decision curve", "Threshold probability", "Net benefit (true positives per case, net)")
-    fig.update_yaxes(range=[-0.1 * max(ymax, 1e-3), 1.15 * max(ymax, 1e-3)])
-    return fig
+        sh, an = _vline(float(current), PALETTE["black"], label="current point")
+        shapes.append(sh)
+        anns.append(an)
+    ymax = max(float(np.nanmax(model)) if np.size(model) else 0.0, 1e-3)
+    return _figure(traces, "Decision curve", "Threshold probability", "Net benefit (true positives per case, net)",
+                   yaxis=dict(range=[-0.1 * ymax, 1.15 * ymax]), shapes=shapes, annotations=anns)
 
 
 def flags_per_period_figure(periods, flagged, *, capacity=None, period: str = "day") -> go.Figure:
     """Flagged cases in each period at the current threshold, with the capacity line."""
-    fig = go.Figure()
-    fig.add_trace(go.Bar(x=periods, y=flagged, name=f"Flagged per {period}",
-                         marker=dict(color=PALETTE["blue"])))
+    traces = [dict(type="bar", x=list(periods), y=np.asarray(flagged, dtype=float), name=f"Flagged per {period}",
+                   marker=dict(color=PALETTE["blue"]))]
+    shapes, anns = [], []
     if capacity is not None:
-        fig.add_hline(y=float(capacity), line=dict(color=PALETTE["vermillion"], dash="dash", width=2),
-                      annotation_text=f"capacity {capacity:,.0f}", annotation_position="top left")
-    _layout(fig, f"Flagged cases per {period}", period.capitalize(), f"Flagged cases per {period}",
-            height=340)
-    return fig
+        sh, an = _hline(float(capacity), PALETTE["vermillion"], label=f"capacity {capacity:,.0f}")
+        shapes.append(sh)
+        anns.append(an)
+    return _figure(traces, f"Flagged cases per {period}", period.capitalize(), f"Flagged cases per {period}",
+                   height=340, shapes=shapes, annotations=anns)

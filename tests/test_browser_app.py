@@ -98,7 +98,7 @@ def test_point_moves_by_keyboard_mouse_and_click_and_survives_page_switches(app_
         # hover shows "point N" (the curve index), the click must land the point on N
         pr = page.locator('[data-testid="stPlotlyChart"]').first
         pr.scroll_into_view_if_needed()
-        idx = curve.downsample(2000, keep=[k1], space="pr")
+        idx = curve.downsample(2000, space="pr")  # the drawn points (markers are separate traces)
         points = pr.locator(".scatterlayer .trace").first.locator("path.point")
         assert points.count() == int((idx > 0).sum())  # the drawn trace is the thinned exact curve
         centres = points.evaluate_all(

@@ -30,6 +30,13 @@ def _cost_table(fingerprint: str, policy_text: str, _dataset, _policy):
 
 
 @st.cache_resource(max_entries=16, show_spinner=False)
+def _thin(fingerprint: str, _curve):
+    idx = charts.thin(_curve, "roc")
+    idx.setflags(write=False)
+    return idx
+
+
+@st.cache_resource(max_entries=16, show_spinner=False)
 def _period_flags(fingerprint: str, policy_text: str, threshold: float, _dataset, _rp):
     from core.capacity import flags_per_period
 
@@ -173,8 +180,7 @@ def _results(ds, act, policy) -> None:
         per_period = "cost_per_period" in ct.columns and st.toggle(
             f"Show cost per {rp.period}", key="decide_cost_period")
         column = "cost_per_period" if per_period else "cost_per_case"
-        idx = curve.downsample(charts.MAX_POINTS, keep=[k] + ([choice.point.index] if choice.point else []),
-                               space="roc")
+        idx = _thin(ds.fingerprint, curve)
         st.plotly_chart(charts.cost_figure(
             ct["threshold"].to_numpy()[idx], ct[column].to_numpy()[idx],
             point_threshold=t_now, optimum_threshold=choice.point.threshold if choice.point else None,

@@ -50,6 +50,14 @@ def _on_chart_select(key: str) -> None:
         state.set_point(int(cd))
 
 
+@st.cache_resource(max_entries=16)
+def _thin(fingerprint: str, space: str, _curve):
+    """The drawn points of a curve, computed once per dataset (markers are separate traces)."""
+    idx = charts.thin(_curve, space)
+    idx.setflags(write=False)
+    return idx
+
+
 @st.cache_resource(max_entries=8)
 def _histogram(fingerprint: str, _dataset):
     return class_histogram(_dataset, bins=60)
@@ -122,12 +130,13 @@ def render() -> None:
 
     left, right = st.columns(2)
     with left:
-        st.plotly_chart(charts.pr_figure(curve, k, pinned=pinned), key="pr_chart", on_select=_on_pr,
+        st.plotly_chart(charts.pr_figure(curve, k, pinned=pinned, idx=_thin(ds.fingerprint, "pr", curve)), key="pr_chart", on_select=_on_pr,
                         selection_mode="points", config={"displaylogo": False})
     with right:
-        st.plotly_chart(charts.roc_figure(curve, k, pinned=pinned), key="roc_chart", on_select=_on_roc,
+        st.plotly_chart(charts.roc_figure(curve, k, pinned=pinned, idx=_thin(ds.fingerprint, "roc", curve)), key="roc_chart", on_select=_on_roc,
                         selection_mode="points", config={"displaylogo": False})
-    st.plotly_chart(charts.metrics_figure(curve, k, score_label=score_label), key="metrics_chart",
+    st.plotly_chart(charts.metrics_figure(curve, k, score_label=score_label,
+                                                       idx=_thin(ds.fingerprint, "roc", curve)), key="metrics_chart",
                     config={"displaylogo": False})
     log_counts = st.toggle("Log scale for counts (events are rare)", value=True, key="dist_log")
     st.plotly_chart(charts.distribution_figure(_histogram(ds.fingerprint, ds), p.point_threshold,
