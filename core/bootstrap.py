@@ -54,17 +54,26 @@ round(W) cases with probabilities proportional to the masses and scales
 each by W / round(W).
 
 How a class's multinomial is drawn (exactly, no approximation): cells of
-at most 4 rows are drawn as rows (uniform integers, then a binary search to
-the cell); the larger cells get independent Poisson counts with means
+at most 4 rows are drawn as rows (a uniform integer per drawn row, mapped
+to its cell); the larger cells get independent Poisson counts with means
 proportional to their size, whose total S is then corrected to the class
 total m -- m - S more rows drawn in proportion to the cells when S < m, a
 uniformly random S - m of the drawn rows removed when S > m. Given S, the
 Poisson counts are multinomial with the cells' shares, and adding or
 removing uniformly chosen rows keeps them multinomial, so the result is
-Multinomial(m, shares). Cost per replicate: one Poisson draw per large cell,
-about one uniform integer per row of the small cells, O(sqrt(n)) for the
-correction, then O(cells) vectorised statistics -- no sort, nothing of
-order n (except sampling weights with rows).
+Multinomial(m, shares).
+
+Cost per replicate: one Poisson draw per large cell, about one uniform
+integer per row of the small cells, O(sqrt(n)) for the correction, then
+O(cells) vectorised statistics (integer cumulative sums, two dot products
+for the AUC, one binary search per band) -- no sort and nothing of order n
+(except sampling weights with rows, which resample every row). Measured on
+a shared 2-core machine with 1M rows at 2 % events (see
+``benchmarks/bench_bootstrap.py``): about 0.7 ms per replicate with bands,
+AUC, AP and the policy's choice when the scores have 4 decimals (7,500
+cells), about 1.8 ms with continuous scores (every event its own score:
+39,000 cells), against 0.26-0.38 s per replicate for resampling the rows
+and running scikit-learn's two curves.
 
 Reproducibility: replicate r draws from its own generator
 ``numpy.random.default_rng([seed, r])``, so any chunking (for a progress
@@ -115,6 +124,8 @@ SMALL_CELL = 4
 DEFAULT_REPLICATES = 2000
 DEFAULT_RECALL_GRID = np.linspace(0.01, 1.0, 100)
 DEFAULT_FPR_GRID = np.linspace(0.0, 1.0, 101)
+DEFAULT_RECALL_GRID.setflags(write=False)
+DEFAULT_FPR_GRID.setflags(write=False)
 
 _SAMPLING_METHODS = ("rows", "moments")
 
@@ -179,9 +190,18 @@ class _Units:
         self.small_share = (self.small_total / total) if total > 0 else 0.0
 
     # ------------------------------------------------------------------ draws
-    def draw(self, g: np.random.Generator, m: int) -> np.ndarray:
-        """Multinomial(m, mass / total) counts over the units (exact; see the module docstring)."""
-        counts = np.zeros(self.k, dtype=np.int64)
+    @property
+    def plain(self) -> bool:
+        """Units are the cells themselves, each drawn unit counting 1 (no weights, no costs)."""
+        return (self.cell is None and self.unit_weight is None and self.unit_cost is None
+                and not self.track_sq and self.scale == 1.0)
+
+    def draw(self, g: np.random.Generator, m: int, out: np.ndarray | None = None) -> np.ndarray:
+        """Multinomial(m, mass / total) counts over the units (exact; see the module docstring).
+
+        ``out``: a zeroed row to write the counts into (float64), else a new int64 array.
+        """
+        counts = np.zeros(self.k, dtype=np.int64) if out is None else out
         if m <= 0:
             return counts
         if self.large_idx.size == 0:
@@ -571,7 +591,8 @@ def event_cells(data, *, thresholds=(), weight_kind: str | None = None,
 class ReplicateChunk:
     """Replicates ``start..stop-1``: cell counts, one row per replicate.
 
-    ``events`` / ``non_events`` are (R, C) replicate cell weights;
+    ``events`` / ``non_events`` are (R, C) replicate cell weights (int64 when
+    they are whole counts: no weights, no costs);
     ``events_sq`` / ``non_events_sq`` (R, C) squared-weight sums (sampling
     weights only); ``event_cost`` (R, C) the replicate cells' miss cost.
     """
@@ -602,17 +623,25 @@ class ReplicateChunk:
 
 
 def _cum0(a):
-    out = np.zeros((a.shape[0], a.shape[1] + 1))
-    np.cumsum(a, axis=1, out=out[:, 1:])
+    """(R, C + 1) float64 cumulative sums with a leading 0 column (integer counts are
+    summed as integers: exact, and several times faster than a float cumulative sum)."""
+    out = np.empty((a.shape[0], a.shape[1] + 1))
+    out[:, 0] = 0.0
+    if a.dtype.kind in "iu":
+        out[:, 1:] = np.cumsum(a, axis=1)
+    else:
+        np.cumsum(a, axis=1, out=out[:, 1:])
     return out
 
 
 def _default_chunk(n_cells: int) -> int:
-    return int(np.clip((1 << 19) // max(n_cells, 1), 1, 256))
+    """Replicates per chunk: about 2^18 matrix entries, so a chunk's arrays stay in cache."""
+    return int(np.clip((1 << 18) // max(n_cells, 1), 1, 256))
 
 
-def _draw_replicate(eu: _Units, nu: _Units, design: str, seed: int, r: int):
-    """Replicate r's cell weights, squared weights and miss costs, from its own generator."""
+def _draw_replicate(eu: _Units, nu: _Units, design: str, seed: int, r: int, rows):
+    """Replicate r's cell weights (and squared weights, miss costs) from its own generator,
+    written into ``rows`` = (events, non_events, events_sq, non_events_sq, cost) rows."""
     g = np.random.default_rng([int(seed), int(r)])
     if design == "cohort":  # the event total first: Binomial(n, P / n), then each class's cells
         total = eu.n_units + nu.n_units
@@ -620,9 +649,17 @@ def _draw_replicate(eu: _Units, nu: _Units, design: str, seed: int, r: int):
         m_ne = total - m_ev
     else:
         m_ev, m_ne = eu.n_units, nu.n_units
-    e, e_sq, cost = eu.to_cells(eu.draw(g, m_ev))
-    n, n_sq, _ = nu.to_cells(nu.draw(g, m_ne))
-    return e, n, e_sq, n_sq, cost
+    e_row, n_row, esq_row, nsq_row, cost_row = rows
+    for units, m, row, sq_row in ((eu, m_ev, e_row, esq_row), (nu, m_ne, n_row, nsq_row)):
+        if units.plain:
+            units.draw(g, m, out=row)
+            continue
+        w, sq, cost = units.to_cells(units.draw(g, m))
+        row[:] = w
+        if sq_row is not None:
+            sq_row[:] = sq
+        if cost_row is not None and cost is not None:
+            cost_row[:] = cost
 
 
 def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
@@ -648,6 +685,8 @@ def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, 
     if int(n_jobs) < 1:
         raise InputError("n_jobs", f"must be at least 1, got {n_jobs!r}")
     eu, nu = cells._event_units, cells._nonevent_units
+    # plain cells hold whole counts: int64 (exact, and cumulative sums run far faster)
+    dtype = np.int64 if eu.plain and nu.plain else np.float64
     pool = None
     if int(n_jobs) > 1:
         from concurrent.futures import ThreadPoolExecutor
@@ -657,18 +696,22 @@ def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, 
         stop_all = start + n_rep
         for lo in range(start, stop_all, size):
             hi = min(lo + size, stop_all)
-            rs = range(lo, hi)
+            R = hi - lo
+            E, N = np.zeros((R, C), dtype=dtype), np.zeros((R, C), dtype=dtype)
+            Esq = np.zeros((R, C)) if eu.track_sq else None
+            Nsq = np.zeros((R, C)) if eu.track_sq else None
+            K = np.zeros((R, C)) if eu.unit_cost is not None else None
+
+            def one(i):
+                _draw_replicate(eu, nu, design, seed, lo + i,
+                                (E[i], N[i], None if Esq is None else Esq[i],
+                                 None if Nsq is None else Nsq[i], None if K is None else K[i]))
+
             if pool is None:
-                draws = [_draw_replicate(eu, nu, design, seed, r) for r in rs]
+                for i in range(R):
+                    one(i)
             else:
-                draws = list(pool.map(lambda r: _draw_replicate(eu, nu, design, seed, r), rs))
-            cols = list(zip(*draws))
-            E, N = np.vstack(cols[0]), np.vstack(cols[1])
-            Esq = Nsq = K = None
-            if eu.track_sq:
-                Esq, Nsq = np.vstack(cols[2]), np.vstack(cols[3])
-            if eu.unit_cost is not None:
-                K = np.vstack(cols[4])
+                list(pool.map(one, range(R)))
             yield ReplicateChunk(start=lo, stop=hi, events=E, non_events=N, events_sq=Esq,
                                  non_events_sq=Nsq, event_cost=K)
             if progress is not None:

@@ -105,21 +105,28 @@ class ReplicateChooser:
             fpr = f / N
             pi = (np.full((R, 1), self.pi_fixed) if self.pi_fixed is not None else P / (P + N))
         tpp, fpp = pi * tpr, (1.0 - pi) * fpr
-        cand = np.ones(t.shape, dtype=bool)
+        # candidates: "flag none" and the tie cells holding an event in the replicate
+        ok = np.empty(t.shape, dtype=bool)
+        ok[:, 0] = True
         if events is not None:
-            cand[:, 1:] = events[:, cc[1:] - 1] > 0
+            np.greater(events[:, cc[1:] - 1], 0, out=ok[:, 1:])
+        else:
+            ok[:, 1:] = True
         if self.sampling and sq is not None:
             n1 = _iv.effective_size_from_sums(P, sq[0][:, -1][:, None])
             n0 = _iv.effective_size_from_sums(N, sq[1][:, -1][:, None])
         else:
             n1, n0 = P, N
-        v = self._objective(tpr, fpr, tpp, fpp, pi, P, cost_cum)
-        ok = cand & self._rules_met(t, f, P, N, tpr, fpr, tpp, fpp, pi, n1, n0)
-        vm = np.where(ok, v, -np.inf)
-        best = vm.max(axis=1, keepdims=True)
+        v = self._objective(tpr, fpr, tpp, fpp, pi, P, cost_cum)  # NaN: undefined
+        self._rules_met(t, f, P, N, tpr, fpr, tpp, fpp, pi, n1, n0, out=ok)
+        # best feasible value (an undefined objective ranks lowest, as -inf in choose())
+        best = np.fmax.reduce(np.where(ok, v, -np.inf), axis=1, keepdims=True)
         with np.errstate(invalid="ignore"):
             tol = TIE_RTOL * np.abs(best)
             hit = ok & (v >= best - tol)
+        undefined = best[:, 0] == -np.inf  # every feasible point undefined: the first one
+        if undefined.any():
+            hit[undefined] = ok[undefined]
         any_ok = ok.any(axis=1)
         first = np.argmax(hit, axis=1)
         out = np.where(any_ok & ~degenerate, cc[first], -1)
@@ -145,8 +152,7 @@ class ReplicateChooser:
                 v = np.where(tpp + fpp > 0, tpp / (tpp + fpp), 0.0)
             else:  # pragma: no cover - validated in the policy
                 raise AssertionError(kind)
-        v = np.asarray(v, dtype=np.float64)
-        return np.where(np.isnan(v), -np.inf, v)
+        return np.asarray(v, dtype=np.float64)
 
     def cost(self, tpr, fpr, pi, P, cost_cum, cols=None):
         """Expected cost per case (NaN without costs), as ``choose()`` computes it."""
@@ -161,11 +167,12 @@ class ReplicateChooser:
         return (pi * miss + rp.false_positive * (1.0 - pi) * fpr
                 + rp.true_positive * pi * tpr + rp.true_negative * (1.0 - pi) * (1.0 - fpr))
 
-    def _rules_met(self, tp, fp, P, N, tpr, fpr, tpp, fpp, pi, n1, n0):
+    def _rules_met(self, tp, fp, P, N, tpr, fpr, tpp, fpp, pi, n1, n0, out):
+        """``out &=`` every active rule's verdict (the formulas of ``choose()``)."""
         rp = self.rp
         conf = rp.confidence
         fn, tn = P - tp, N - fp
-        met_all = np.ones(tp.shape, dtype=bool)
+        met_all = out
         for name, lim in rp.rules.items():
             bound = None
             lower_rule = name.startswith("min_")
@@ -175,7 +182,7 @@ class ReplicateChooser:
                     met = value >= lim - TIE_RTOL * abs(lim)
                     if conf is not None:
                         met &= _wilson_bound_met(value, n1 if name == "min_recall" else n0, conf,
-                                                 lim - TIE_RTOL * abs(lim),
+                                                 lim - TIE_RTOL * abs(lim), met,
                                                  rising=name == "min_recall")
                     met_all &= met
                     continue
@@ -247,39 +254,68 @@ class ReplicateChooser:
         return {k: np.where(bad, np.nan, v) for k, v in out.items()}
 
 
-def _wilson_bound_met(rate, size, confidence, floor, *, rising):
-    """``wilson_lower(rate * size, size) >= floor`` at every column, found by bisection.
+_WINDOW = 256
+
+
+def _wilson_bound_met(rate, size, confidence, floor, value_met, *, rising):
+    """``wilson_lower(rate * size, size) >= floor`` at every column, without evaluating it
+    at every column.
 
     Along the columns ``rate`` never falls (recall; ``rising``) or never rises
     (specificity) at a fixed size, and the Wilson lower bound rises with the
-    successes, so the columns meeting the bound are a suffix (a prefix): a
-    binary search per row evaluates the bound -- the same expression as
-    ``choose()`` -- at O(log columns) points instead of every column.
+    successes, so the columns meeting the bound are a suffix (a prefix). The
+    bound never exceeds the rate, so its edge lies at or after (before) the
+    edge of the point rule ``value_met``: the bound -- the same expression as
+    ``choose()`` -- is evaluated on a window of columns from there in one
+    call, with a binary search per row as the fallback when the edge is not
+    inside the window. Exact: only the monotone order is used.
     """
     R, K = rate.shape
     rows = np.arange(R)
     n = np.broadcast_to(np.asarray(size, dtype=np.float64).reshape(-1, 1), (R, 1))[:, 0]
 
-    def ok(j):
-        r = rate[rows, j]
-        lo = _iv.wilson_interval(r * n, n, confidence, sided="lower")[0]
+    def test(r_idx, cols):
+        """Monotone False -> True along the columns: the bound holds (rising) or fails."""
+        x = rate[r_idx[:, None], cols] if cols.ndim == 2 else rate[r_idx, cols]
+        nn = n[r_idx][:, None] if cols.ndim == 2 else n[r_idx]
+        lo = _iv.wilson_interval(x * nn, np.broadcast_to(nn, x.shape), confidence,
+                                 sided="lower")[0]
         with np.errstate(invalid="ignore"):
             good = lo >= floor
         return good if rising else ~good
 
-    # first column where ok(j) holds (rising: the bound is met; falling: it fails)
+    passed = value_met.sum(axis=1)
+    W = min(_WINDOW, K)
+    if rising:  # the bound's edge is not before the first column meeting the point rule
+        start = K - passed
+    else:  # the bound fails at the latest where the point rule fails
+        start = np.maximum(passed - W + 1, 0)
+    start = np.minimum(start, K - 1)
+    cols = start[:, None] + np.arange(W)[None, :]
+    inside = cols < K
+    hit = test(rows, np.minimum(cols, K - 1)) & inside
+    found = hit.any(axis=1)
+    first = start + np.argmax(hit, axis=1)
+    answer = np.where(found, first, K)
     lo = np.zeros(R, dtype=np.int64)
     hi = np.full(R, K, dtype=np.int64)
-    while True:
-        act = lo < hi
-        if not act.any():
-            break
-        mid = (lo + hi) // 2
-        hit = ok(np.minimum(mid, K - 1)) & act
-        hi = np.where(hit, mid, hi)
-        lo = np.where(act & ~hit, mid + 1, lo)
-    cols = np.arange(K)[None, :]
-    return cols >= lo[:, None] if rising else cols < lo[:, None]
+    # the edge may lie before the window (found at its first column) or after it
+    before = found & (first == start) & (start > 0)
+    after = ~found & (start + W < K)
+    hi[before] = start[before]
+    lo[after] = start[after] + W
+    todo = before | after
+    while todo.any():
+        idx = np.flatnonzero(todo)
+        mid = (lo[idx] + hi[idx]) // 2
+        h = test(idx, np.minimum(mid, K - 1)) & (mid < K)
+        hi[idx] = np.where(h, mid, hi[idx])
+        lo[idx] = np.where(h, lo[idx], mid + 1)
+        todo[idx] = lo[idx] < hi[idx]
+    fallback = before | after
+    answer[fallback] = lo[fallback]
+    c = np.arange(K)[None, :]
+    return c >= answer[:, None] if rising else c < answer[:, None]
 
 
 class StabilityCollector:
@@ -426,14 +462,14 @@ def data_choice_column(cells: EventCells, choice) -> int:
 def threshold_stability(data, policy: Policy, *, n_replicates: int = DEFAULT_REPLICATES,
                         seed: int = 0, design: str = "cohort", chunk: int | None = None,
                         progress=None, cells: EventCells | None = None,
-                        sampling_weights: str = "rows") -> ThresholdStability:
+                        sampling_weights: str = "rows", n_jobs: int = 1) -> ThresholdStability:
     """Re-run the policy's choice in every bootstrap replicate (see the module docstring).
 
     Parameters
     ----------
     data : Dataset or Curve
     policy : Policy
-    n_replicates, seed, design, chunk, progress
+    n_replicates, seed, design, chunk, progress, n_jobs
         As :func:`core.bootstrap.bootstrap_counts`; the same seed gives the
         same replicates as :func:`core.bootstrap.bootstrap`.
 
@@ -449,7 +485,8 @@ def threshold_stability(data, policy: Policy, *, n_replicates: int = DEFAULT_REP
     chooser = ReplicateChooser(cells, policy, data)
     col0 = data_choice_column(cells, choose(data, policy))
     coll = StabilityCollector(chooser, n_replicates)
-    for ch in bootstrap_counts(cells, n_replicates, seed, design, chunk=chunk, progress=progress):
+    for ch in bootstrap_counts(cells, n_replicates, seed, design, chunk=chunk, progress=progress,
+                               n_jobs=n_jobs):
         tp, fp = ch.cumulative()
         coll.update(ch, tp, fp)
     return _summarise(coll, cells, col0, seed=seed, design=design, notes=chooser.notes)

@@ -470,13 +470,17 @@ def evidence(data, policy, *, threshold: float | None = None,
              n_replicates: int = DEFAULT_REPLICATES, seed: int = 0, design: str = "cohort",
              method: str = "wilson", confidence: float = 0.95,
              k: int = 5, recall_grid=DEFAULT_RECALL_GRID, fpr_grid=DEFAULT_FPR_GRID,
-             chunk: int | None = None, progress=None, sampling_weights: str = "rows") -> Evidence:
+             chunk: int | None = None, progress=None, sampling_weights: str = "rows",
+             n_jobs: int = 1) -> Evidence:
     """The whole Evidence for ``data`` under ``policy`` in one bootstrap pass.
 
     ``threshold=None`` takes the policy's recommended point (derived from
     these data); a number is a pre-specified threshold. The same arguments
     give the same result in the app and on the command line (replicate r
-    always uses ``default_rng([seed, r])``).
+    always uses ``default_rng([seed, r])``, whatever ``chunk`` and ``n_jobs``).
+    With sampling weights and rows, ``sampling_weights="rows"`` resamples every
+    row (exact, O(rows) per replicate); ``"moments"`` is fast and approximate
+    (see :mod:`core.bootstrap`).
     """
     from core.choose import choose, evaluate
     from core.optimism import _harrell_from, cross_fit, Optimism, QUANTITIES, _values
@@ -508,7 +512,7 @@ def evidence(data, policy, *, threshold: float | None = None,
     res = bootstrap(data, n_replicates=n_replicates, seed=seed, design=design, thresholds=ths,
                     prevalence=pi_fixed, costs=costs, cases_per_period=rp.cases_per_period,
                     recall_grid=recall_grid, fpr_grid=fpr_grid, chunk=chunk, progress=progress,
-                    collectors=(coll,), cells=cells)
+                    collectors=(coll,), cells=cells, n_jobs=n_jobs)
     stab = _summarise(coll, cells, col0, seed=seed, design=design, notes=chooser.notes)
     analytic: list[Interval] = []
     boot: list[Interval] = []

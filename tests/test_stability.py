@@ -194,3 +194,28 @@ def test_capacity_quantile_is_held_at_the_full_data_limit():
     limit_col = max(c for c in range(cells.n_cells + 1)
                     if c == 0 or cells.thresholds[c - 1] >= full.point.threshold)
     assert st.columns.max() <= limit_col
+
+
+@pytest.mark.parametrize("window", [1, 3, 256])
+@pytest.mark.parametrize("rising", [True, False])
+def test_wilson_rule_edge_equals_evaluating_every_column(monkeypatch, window, rising):
+    # Source: core.intervals.wilson_interval evaluated at every column (the reference);
+    # small windows force the binary-search fallbacks on both sides.
+    import core.stability as stab
+    from core.intervals import wilson_interval
+
+    monkeypatch.setattr(stab, "_WINDOW", window)
+    rng = np.random.default_rng(window)
+    R, K = 40, 300
+    steps = rng.integers(0, 3, (R, K)).astype(float)
+    n = rng.integers(50, 400, R).astype(float)
+    rate = np.cumsum(steps, axis=1) / np.cumsum(steps, axis=1)[:, -1:]
+    if not rising:
+        rate = 1.0 - rate
+    for floor in (0.0, 0.3, 0.7, 0.95, 1.0):
+        value_met = rate >= floor
+        lo = wilson_interval(rate * n[:, None], np.broadcast_to(n[:, None], rate.shape), 0.9,
+                             sided="lower")[0]
+        want = value_met & (lo >= floor)
+        got = value_met & stab._wilson_bound_met(rate, n, 0.9, floor, value_met, rising=rising)
+        np.testing.assert_array_equal(got, want)
