@@ -164,3 +164,20 @@ def test_good_upload_becomes_the_active_dataset():
     assert side["Cases"] == "3,000" and side["Events"] == fmt.count(int(y.sum()))
     at.switch_page("views/tradeoffs.py").run()
     assert not at.exception
+
+
+def test_invoice_demo_with_case_costs_through_every_page():
+    at = fresh()
+    at.radio(key="scores_source").set_value("invoices").run()
+    assert not at.exception
+    inv = load_demo("invoices")
+    side = {m.label: m.value for m in at.sidebar.metric}
+    assert side["Cases"] == fmt.count(inv.n_rows) and side["Events"] == fmt.count(inv.n_events)
+    at.switch_page("views/tradeoffs.py").run()
+    assert not at.exception
+    at.switch_page("views/decide.py").run()
+    assert not at.exception and not at.error, [e.value for e in at.error]
+    policy = loads_policy((POLICY_DIR / "invoices.toml").read_text())
+    assert policy.costs.false_negative_column == "invoice_amount"
+    choice = choose(inv, policy)
+    assert any(f"Threshold {fmt.threshold(choice.point.threshold)}" in m.value for m in at.markdown)
