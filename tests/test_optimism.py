@@ -168,3 +168,25 @@ def test_cross_fit_refuses_too_few_events():
         cross_fit(Dataset.from_arrays(y, s), pol, k=5)
     with pytest.raises(InputError, match="at least 2"):
         cross_fit(Dataset.from_arrays(y, s), pol, k=1)
+
+
+def test_capacity_quantile_policy_cross_fits_on_row_subsets():
+    # A capacity-quantile rule needs score times: each training fold is swept as rows,
+    # with the full data's cases per period (a fold holds fewer cases per period).
+    rng = np.random.default_rng(6)
+    y, s = _sample(rng, 6000)
+    t = np.datetime64("2025-01-01") + (rng.integers(0, 60 * 24, y.size) * 60).astype("timedelta64[m]")
+    ds = Dataset.from_arrays(y, np.round(s, 2), score_time=t)
+    pol = Policy(objective=Objective("max_recall"),
+                 rules=Rules(max_flagged_per_period=25.0, capacity_quantile=0.9))
+    cf = cross_fit(ds, pol, k=4, seed=1)
+    c = ds.curve()
+    assert cf.counts["tp"] + cf.counts["fn"] == c.n_events
+    assert cf.counts["fp"] + cf.counts["tn"] == c.n_nonevents
+    full = choose(ds, pol).point.threshold
+    # folds choose near the full-data limit (the same volume per period) ...
+    assert all(abs(th - full) <= 0.05 for th in cf.thresholds)
+    # ... where a fold resolved on its own 3/4 of the cases per period flags far more
+    fold = _stratified_folds(ds.y_true, 4, np.random.default_rng(1))
+    naive = [choose(ds.subset(fold != j), pol).point.threshold for j in range(4)]
+    assert all(full - th > 0.1 for th in naive)
