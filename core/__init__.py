@@ -36,3 +36,18 @@ from core.reading import RawTable, ReadInfo, read_table  # noqa: E402
 
 __all__ += ["DEMOS", "label_values", "load_count_table", "load_dataset", "load_demo", "suggest_mapping",
             "RawTable", "ReadInfo", "read_table"]
+
+from core.bootstrap import (DESIGNS, BootstrapResult, EventCells, bootstrap,  # noqa: E402
+                            bootstrap_counts, event_cells, percentile_interval)
+from core.optimism import (CrossFit, HarrellCorrection, Optimism, cross_fit,  # noqa: E402
+                           harrell_correction, optimism)
+from core.stability import ThresholdStability, threshold_stability  # noqa: E402
+from core.uncertainty import (Evidence, Interval, bootstrap_intervals, curve_intervals,  # noqa: E402
+                              events_for_recall_half_width, evidence, few_events_statement,
+                              point_intervals)
+
+__all__ += ["DESIGNS", "BootstrapResult", "EventCells", "bootstrap", "bootstrap_counts", "event_cells",
+            "percentile_interval", "CrossFit", "HarrellCorrection", "Optimism", "cross_fit",
+            "harrell_correction", "optimism", "ThresholdStability", "threshold_stability", "Evidence",
+            "Interval", "bootstrap_intervals", "curve_intervals", "events_for_recall_half_width",
+            "evidence", "few_events_statement", "point_intervals"]
