@@ -243,3 +243,34 @@ def flags_per_period_figure(periods, flagged, *, capacity=None, period: str = "d
         anns.append(an)
     return _figure(traces, f"Flagged cases per {period}", period.capitalize(), f"Flagged cases per {period}",
                    height=340, shapes=shapes, annotations=anns)
+
+
+def band_figure(curve: Curve, band: dict, point: int | None, *, which: str = "pr", idx=None,
+                confidence: float = 0.95) -> go.Figure:
+    """The exact curve inside its bootstrap percentile band (``core.uncertainty`` bands)."""
+    grid = np.asarray(band["grid"], dtype=float)
+    lo = np.asarray([np.nan if v is None else v for v in band["low"]], dtype=float)
+    hi = np.asarray([np.nan if v is None else v for v in band["high"]], dtype=float)
+    space = "pr" if which == "pr" else "roc"
+    idx = thin(curve, space) if idx is None else idx
+    if which == "pr":
+        idx = idx[idx > 0]
+        x, y = curve.recall[idx], curve.precision[idx]
+        title, xl, yl = "Precision–recall curve with its bootstrap band", "Recall", "Precision"
+        px, py = (curve.recall[point], curve.precision[point]) if point else (None, None)
+    else:
+        x, y = curve.fpr[idx], curve.recall[idx]
+        title, xl, yl = "ROC curve with its bootstrap band", "False-positive rate", "Recall (true-positive rate)"
+        px, py = (curve.fpr[point], curve.recall[point]) if point is not None else (None, None)
+    traces = [
+        dict(type="scatter", x=grid, y=hi, mode="lines", line=dict(width=0, color=PALETTE["sky"]),
+             showlegend=False, hoverinfo="skip"),
+        dict(type="scatter", x=grid, y=lo, mode="lines", line=dict(width=0, color=PALETTE["sky"]),
+             fill="tonexty", fillcolor="rgba(86,180,233,0.30)", name=f"{confidence:.0%} bootstrap band",
+             hoverinfo="skip"),
+        dict(type="scatter", x=x, y=y, mode="lines", name="Exact curve", line=dict(color=PALETTE["blue"], width=2)),
+    ]
+    if px is not None and np.isfinite(px) and np.isfinite(py):
+        traces.append(_marker_trace(px, py, "Operating point", _POINT, "operating point"))
+    return _figure(traces, title, xl, yl, xaxis=dict(range=[-0.02, 1.02]), yaxis=dict(range=[-0.02, 1.02]),
+                   height=380)

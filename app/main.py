@@ -37,6 +37,7 @@ PAGES = [
             default=True),
     st.Page("views/tradeoffs.py", title="Trade-offs", icon=":material/tune:", url_path="tradeoffs"),
     st.Page("views/decide.py", title="Decide", icon=":material/gavel:", url_path="decide"),
+    st.Page("views/evidence.py", title="Evidence", icon=":material/verified:", url_path="evidence"),
 ]
 
 page = st.navigation(PAGES, position="sidebar")

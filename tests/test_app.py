@@ -181,3 +181,22 @@ def test_invoice_demo_with_case_costs_through_every_page():
     assert policy.costs.false_negative_column == "invoice_amount"
     choice = choose(inv, policy)
     assert any(f"Threshold {fmt.threshold(choice.point.threshold)}" in m.value for m in at.markdown)
+
+
+def test_evidence_page_shows_core_intervals(demo):
+    from core import evidence
+
+    at = fresh()
+    at.switch_page("views/evidence.py").run()
+    assert not at.exception and not at.error, [e.value for e in at.error]
+    policy = loads_policy((POLICY_DIR / "hospital.toml").read_text())
+    ev = evidence(demo, policy, n_replicates=2000, seed=0)
+    table = at.dataframe[0].value
+    rec = next(i for i in ev.analytic if i.metric == "recall")
+    row = table[(table["Metric"] == rec.label) & (table["Judged at"] == "validation")].iloc[0]
+    assert row["Estimate"] == fmt.pct(rec.estimate)
+    assert row["95% interval"] == f"{fmt.pct(rec.low)} to {fmt.pct(rec.high)}"
+    boot = next(i for i in ev.bootstrap if i.metric == "recall" and i.basis == "validation")
+    assert row["Bootstrap interval"] == f"{fmt.pct(boot.low)} to {fmt.pct(boot.high)}"
+    same = next(m for m in at.main.metric if m.label == "Same point")
+    assert same.value == fmt.pct(ev.stability.to_dict()["share_same_point"])
