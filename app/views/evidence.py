@@ -75,14 +75,18 @@ def _stability_block(stab: dict) -> None:
     c[2].metric("Within one event score", fmt.pct(stab["share_within_one_event_score"]),
                 help="Share of replicates choosing the same point or the neighbouring event score.")
     spread = stab.get("spread") or {}
-    if spread:
+    if spread.get("apparent") and spread.get("on_data"):
+        def cell(d):
+            return f"{_value(q, d['median'])} ({_value(q, d['low'])} to {_value(q, d['high'])})"
+
         rows = []
-        for q, d in spread.items():
-            if isinstance(d, dict):
-                rows.append({"At the replicate's choice": q, **{k: _value(q, v) if isinstance(v, (int, float)) or v
-                                                                 is None else str(v) for k, v in d.items()}})
-        if rows:
-            st.dataframe(pd.DataFrame(rows), hide_index=True)
+        for q in spread["apparent"]:
+            rows.append({"Quantity": q.replace("_", " "),
+                         "Replicate's own view: median (95 % range)": cell(spread["apparent"][q]),
+                         "Full data at the replicate's threshold": cell(spread["on_data"][q])})
+        st.dataframe(pd.DataFrame(rows), hide_index=True)
+        st.caption("How far the chosen point's performance moves when the sample changes: as each "
+                   "resample sees it, and on the full data at the threshold that resample would have chosen.")
     for note in stab.get("notes", []):
         st.caption(note)
 
