@@ -53,8 +53,14 @@ def _add_app(sub) -> None:
     p.set_defaults(func=_cmd_app)
 
 
+def _add_pick(sub) -> None:
+    from core.cli_pick import add_pick
+
+    add_pick(sub)
+
+
 #: name -> function that adds the subcommand to the subparsers object.
-COMMANDS = {"app": _add_app}
+COMMANDS = {"app": _add_app, "pick": _add_pick}
 
 
 def build_parser() -> argparse.ArgumentParser:

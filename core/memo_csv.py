@@ -1,0 +1,65 @@
+"""CSV tables of a decision record, guarded against spreadsheet formula injection.
+
+:func:`test_vectors_csv` (the scores either side of the threshold with their
+expected decisions, for whoever implements the threshold in the live
+system) and :func:`metrics_csv` (every metric with its intervals at
+validation and deployment prevalence). A spreadsheet runs a text cell that
+begins with ``=``, ``+``, ``-``, ``@``, a tab or a carriage return as a
+formula, so :func:`csv_cell` prefixes such text with an apostrophe; numbers
+are written as numbers and left alone (a negative score stays ``-0.5``).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+
+__all__ = ["FORMULA_STARTS", "csv_cell", "test_vectors_csv", "metrics_csv"]
+
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def csv_cell(value):
+    """A cell value safe to open in a spreadsheet: risky text gets a leading apostrophe."""
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        if isinstance(value, float) and math.isnan(value):
+            return ""
+        return repr(value) if isinstance(value, float) else str(value)
+    text = str(value)
+    if text.startswith(FORMULA_STARTS):
+        return "'" + text
+    return text
+
+
+def _write(header, rows) -> str:
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow([csv_cell(h) for h in header])
+    for r in rows:
+        w.writerow([csv_cell(c) for c in r])
+    return buf.getvalue()
+
+
+def test_vectors_csv(record: dict) -> str:
+    """The record's test vectors as CSV: score (number), text, position, expected decision."""
+    tv = record["test_vectors"]
+    rows = [(v["score"], v["text"], v["position"], "flag" if v["flagged"] else "no flag")
+            for v in tv["vectors"]]
+    return _write(("score", "score_as_written", "position", "expected_decision"), rows)
+
+
+def metrics_csv(record: dict) -> str:
+    """Every metric of the record at validation and at deployment prevalence, with intervals."""
+    rows = []
+    for where in ("validation", "deployment"):
+        for name, e in record["metrics"][where].items():
+            b = e.get("bootstrap") or {}
+            rows.append((where, name, e.get("value"), e.get("ci_low"), e.get("ci_high"),
+                         e.get("method"), e.get("basis"), b.get("ci_low"), b.get("ci_high")))
+    return _write(("where", "metric", "value", "ci_low", "ci_high", "method", "basis",
+                   "bootstrap_low", "bootstrap_high"), rows)
