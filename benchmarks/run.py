@@ -41,10 +41,11 @@ sys.path.insert(0, str(ROOT))
 
 from core import sweep  # noqa: E402
 
-#: Weighted input places every row by binary search (no argsort), then three
-#: bincounts: more memory traffic than the unweighted path, which only
-#: searches the events. The goal we hold it to: within 4x of the bare sort.
-WEIGHTED_GOAL = 4.0
+#: Weighted input needs one permutation to carry each row's weight to its score
+#: (a bare sort loses the pairing), so its honest floor is a bare
+#: ``numpy.argsort`` of the scores, not ``numpy.sort``: the goal is within 2x
+#: of that argsort (and faster than scikit-learn, which also argsorts).
+WEIGHTED_GOAL = 2.0
 
 
 def best_time(fn, repeats: int) -> float:
@@ -77,6 +78,10 @@ def bench_sweep(n: int, rounded: bool, weighted: bool, repeats: int, with_sklear
                 f"{' weighted' if weighted else ''}",
         "fulcrum_s": t_ours, "numpy_sort_s": t_sort, "vs_sort": t_ours / t_sort,
     }
+    if weighted:
+        t_arg = best_time(lambda: np.argsort(s), repeats)
+        row.update(reference_s=t_arg, ratio=t_ours / t_arg, note="reference: bare numpy.argsort "
+                   "(weights need a permutation); ratio = Fulcrum / argsort")
     if with_sklearn:
         t_sk = best_time(lambda: precision_recall_curve(y, s, sample_weight=w), 1)
         c = sweep(y, s, w)
@@ -84,9 +89,13 @@ def bench_sweep(n: int, rounded: bool, weighted: bool, repeats: int, with_sklear
         same = bool(np.array_equal(th[::-1], c.thresholds[1:])
                     and np.allclose(p[:-1][::-1], c.precision[1:], rtol=1e-12))
         row.update(sklearn_s=t_sk, sklearn_over_fulcrum=t_sk / t_ours, identical_output=same)
-    goal = WEIGHTED_GOAL if weighted else (1.5 if rounded else 2.0)
-    row["goal"] = f"<= {goal:g}x sort"
-    row["met"] = bool(row["vs_sort"] <= goal)
+    if weighted:
+        row["goal"] = f"<= {WEIGHTED_GOAL:g}x argsort"
+        row["met"] = bool(row["ratio"] <= WEIGHTED_GOAL and row.get("sklearn_over_fulcrum", 2) > 1)
+    else:
+        goal = 1.5 if rounded else 2.0
+        row["goal"] = f"<= {goal:g}x sort" + (" (at 10M)" if n < 10_000_000 else "")
+        row["met"] = bool(row["vs_sort"] <= goal)
     return row
 
 
@@ -131,21 +140,27 @@ def bench_choose(n: int = 1_000_000, repeats: int = 3) -> dict:
             "goal": "< 1 s", "met": bool(t < 1.0)}
 
 
-def extra_sections(quick: bool) -> list[dict]:
+SECTIONS = ("sweep", "f1", "intake", "choose", "bootstrap", "crossfit", "app")
+
+
+def extra_sections(quick: bool, sections=SECTIONS) -> list[dict]:
     """Sections that time other parts of the product (intake, policy, bootstrap, app)."""
     from benchmarks.bench_app import bench_point_move
     from benchmarks.bench_bootstrap import bench_bootstrap, bench_crossfit
     from benchmarks.bench_intake import bench_csv_load
 
     n = 100_000 if quick else 1_000_000
-    rows = [bench_csv_load(n_rows=n, repeats=2 if quick else 5)]
-    print(f"  {rows[-1]['name']}: done", file=sys.stderr)
-    rows.append(bench_choose(n))
-    rows.extend(bench_bootstrap(n_rows=n, n_replicates=200 if quick else 2000))
-    print("  bootstrap: done", file=sys.stderr)
-    rows.append(bench_crossfit(n_rows=n))
-    rows.append(bench_point_move(n_rows=n, moves=5 if quick else 10))
-    print("  app: done", file=sys.stderr)
+    rows = []
+    if "intake" in sections:
+        rows.append(bench_csv_load(n_rows=n, repeats=2 if quick else 5))
+    if "choose" in sections:
+        rows.append(bench_choose(n))
+    if "bootstrap" in sections:
+        rows.extend(bench_bootstrap(n_rows=n, n_replicates=200 if quick else 2000))
+    if "crossfit" in sections:
+        rows.append(bench_crossfit(n_rows=n))
+    if "app" in sections:
+        rows.append(bench_point_move(n_rows=n, moves=5 if quick else 10))
     return rows
 
 
@@ -162,16 +177,20 @@ def main(argv=None) -> int:
     ap.add_argument("--quick", action="store_true", help="small sizes (checks the script)")
     ap.add_argument("--repeats", type=int, default=3)
     ap.add_argument("--out", default=str(ROOT / "benchmarks" / "results" / "latest.json"))
+    ap.add_argument("--sections", nargs="+", choices=SECTIONS, default=list(SECTIONS),
+                    help="which sections to run (default: all)")
     args = ap.parse_args(argv)
     sizes = [200_000] if args.quick else [1_000_000, 10_000_000]
     rows = []
-    for n in sizes:
-        for rounded in (False, True):
-            for weighted in (False, True):
-                rows.append(bench_sweep(n, rounded, weighted, args.repeats, with_sklearn=True))
-                print(f"  {rows[-1]['name']}: {rows[-1]['fulcrum_s']:.3f} s", file=sys.stderr)
-    rows.append(bench_f1_all_thresholds(20_000 if args.quick else 100_000))
-    rows.extend(extra_sections(args.quick))
+    if "sweep" in args.sections:
+        for n in sizes:
+            for rounded in (False, True):
+                for weighted in (False, True):
+                    rows.append(bench_sweep(n, rounded, weighted, args.repeats, with_sklearn=True))
+                    print(f"  {rows[-1]['name']}: {rows[-1]['fulcrum_s']:.3f} s", file=sys.stderr)
+    if "f1" in args.sections:
+        rows.append(bench_f1_all_thresholds(20_000 if args.quick else 100_000))
+    rows.extend(extra_sections(args.quick, args.sections))
 
     cols = ["name", "fulcrum_s", "numpy_sort_s", "vs_sort", "sklearn_s", "sklearn_over_fulcrum",
             "reference_s", "ratio", "identical_output", "goal", "met"]

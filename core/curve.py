@@ -654,11 +654,39 @@ def _sweep_unweighted(y, s, a, higher_is_riskier):
                                   cost_strict=cost, n_rows=n, weighted=False)
 
 
+def _few_distinct(s: np.ndarray) -> bool:
+    """Whether the scores look coarse (many ties): judged on an even sample of ~65k rows."""
+    step = max(1, s.shape[0] // 65536)
+    sample = s[::step]
+    return np.unique(sample).shape[0] <= sample.shape[0] // 4
+
+
 def _sweep_weighted(y, s, w, a, higher_is_riskier):
-    """Weighted rows: one argsort carries each weight to its score (no way around a
-    permutation when every row has its own weight), then cumulative sums read at the
-    boundary of each run of tied scores, in point order."""
+    """Weighted rows: each row's weight must reach its score's cell.
+
+    Coarse scores (few distinct values, e.g. rounded to 4 decimals) are hashed
+    to their value with ``pandas.factorize`` and summed per value with
+    ``bincount``: no permutation of the rows. Otherwise one argsort carries
+    each weight to its score (no way around a permutation when every row has
+    its own weight) and cumulative sums are read at the boundary of each run
+    of tied scores, in point order.
+    """
     n = s.shape[0]
+    if _few_distinct(s):
+        codes, uniques = pd.factorize(s, sort=False)
+        uniques = np.asarray(uniques, dtype=np.float64)
+        _check_sorted_ends("y_score", np.sort(uniques), s)
+        asc = np.unique(uniques)  # sorted distinct values (-0.0 and 0.0 are one value)
+        cell = np.searchsorted(asc, uniques)[codes]
+        d = asc.shape[0]
+        wy = np.where(y, w, 0.0)
+        wn = w - wy
+        cost = None if a is None else np.bincount(cell, weights=np.where(y, w * a, 0.0), minlength=d)
+        return Curve._from_cells(
+            asc, np.bincount(cell, weights=wy, minlength=d), np.bincount(cell, weights=wn, minlength=d),
+            higher_is_riskier=higher_is_riskier, cost=cost,
+            pos_sq=np.bincount(cell, weights=wy * wy, minlength=d),
+            neg_sq=np.bincount(cell, weights=wn * wn, minlength=d), n_rows=n, weighted=True)
     order = np.argsort(s)
     if higher_is_riskier:
         order = order[::-1]  # strictest first
