@@ -43,7 +43,12 @@ it wrong. For scores in [0, 1] with higher meaning riskier,
 The criterion (:data:`CRITERION`): the scores **look calibrated** when the
 ``confidence`` interval of the slope contains 1 and that of the intercept
 (calibration-in-the-large) contains 0, with at least 100 events (Collins et
-al., Stat Med 2016: fewer cannot show miscalibration). It decides whether the
+al., Stat Med 2016: fewer cannot show miscalibration). Per group (within-group
+calibration) the same rule is applied to Holm-adjusted Wald p-values of
+slope = 1 and intercept = 0, two tests per group (``adjust="holm"``, Holm
+1979), so that many groups do not throw up miscalibration by chance; a group
+with one class only, or whose scores separate its classes, has no fit and is
+reported as "cannot fit". It decides whether the
 Decide page shows the cost-derived threshold as meaningful: pass
 ``calibrated=report.looks_calibrated`` to :func:`core.choose.choose`.
 Calibration is judged on the validation cases; with a deployment prevalence
@@ -63,20 +68,20 @@ from core import intervals as _iv
 from core.errors import InputError
 
 __all__ = [
-    "STRATEGIES",
+    "CRITERION",
     "DEFAULT_EPS",
     "MIN_EVENTS",
-    "CRITERION",
-    "ReliabilityCurve",
-    "RecalibrationFit",
+    "STRATEGIES",
     "Calibration",
     "CalibrationReport",
-    "reliability_curve",
+    "RecalibrationFit",
+    "ReliabilityCurve",
     "brier_score",
-    "expected_calibration_error",
     "calibration_intercept_slope",
-    "observed_expected_ratio",
     "calibration_report",
+    "expected_calibration_error",
+    "observed_expected_ratio",
+    "reliability_curve",
 ]
 
 STRATEGIES = ("quantile", "uniform")
@@ -526,7 +531,7 @@ def _oe(b: _Binomial, conf):
     w = b.w
     tot = float(w.sum())
     E = float(np.sum(w * b.p))
-    trials, deff = _effective_trials(b)
+    trials, _ = _effective_trials(b)
     tr = float(trials[0])
     if not (E > 0 and tot > 0):
         return math.nan, math.nan, math.nan

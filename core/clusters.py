@@ -59,33 +59,45 @@ import pandas as pd
 from scipy import sparse
 
 from core import intervals as _iv
-from core.bootstrap import (DEFAULT_FPR_GRID, DEFAULT_RECALL_GRID, DEFAULT_REPLICATES,
-                            BootstrapResult, EventCells, ReplicateChunk, _cost_per_case,
-                            average_precision, counts_at, event_cells, percentile_interval,
-                            precision_at_recall, roc_auc, tpr_at_fpr)
+from core.bootstrap import (
+    DEFAULT_FPR_GRID,
+    DEFAULT_RECALL_GRID,
+    DEFAULT_REPLICATES,
+    BootstrapResult,
+    EventCells,
+    ReplicateChunk,
+    _cost_per_case,
+    average_precision,
+    counts_at,
+    event_cells,
+    percentile_interval,
+    precision_at_recall,
+    roc_auc,
+    tpr_at_fpr,
+)
 from core.errors import InputError
 
 __all__ = [
-    "COUNT_TABLE_NO_CLUSTERS",
-    "NO_CLUSTER_COLUMN",
     "CLUSTER_METHOD_NAME",
+    "COUNT_TABLE_NO_CLUSTERS",
     "DESIGN_EFFECT_METHOD",
     "METRIC_CELLS",
+    "NO_CLUSTER_COLUMN",
+    "ClusterBootstrapResult",
+    "ClusterMetric",
+    "ClusterSummary",
+    "cluster_bootstrap",
+    "cluster_bootstrap_counts",
     "cluster_codes",
     "cluster_draws",
     "cluster_matrix",
-    "resample_cluster_sums",
-    "ratio_design_effect",
-    "kish_icc",
-    "uses_cluster_bootstrap",
-    "cluster_statement",
-    "ClusterBootstrapResult",
-    "cluster_bootstrap_counts",
-    "cluster_bootstrap",
-    "ClusterMetric",
     "cluster_metric_intervals",
-    "ClusterSummary",
+    "cluster_statement",
     "cluster_summary",
+    "kish_icc",
+    "ratio_design_effect",
+    "resample_cluster_sums",
+    "uses_cluster_bootstrap",
 ]
 
 COUNT_TABLE_NO_CLUSTERS = (
@@ -170,7 +182,7 @@ def cluster_codes(data) -> tuple[np.ndarray, int]:
     if missing.size:
         raise InputError(name, "has rows without a cluster id", missing,
                          hint="every case needs its cluster id (patient or customer)")
-    return codes.astype(np.int64), int(len(uniques))
+    return codes.astype(np.int64), len(uniques)
 
 
 def _cluster_name(data) -> str:
@@ -462,7 +474,7 @@ def cluster_bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int
     if not isinstance(data, Dataset):
         raise InputError("cluster", "the cluster bootstrap needs a Dataset with a cluster column "
                          "(a Curve has no rows)")
-    codes, K = cluster_codes(data)
+    cluster_codes(data)  # raises for a count table, no cluster column or missing ids
     ths = tuple(float(t) for t in thresholds)
     if cells is None:
         cells = event_cells(data, thresholds=ths)
@@ -539,7 +551,9 @@ class ClusterMetric:
     was not run); ``design_effect``: the analytic (linearisation) design
     effect; ``design_effect_bootstrap``: the replicates' variance over the
     binomial variance; ``effective_size``: the naive size over the analytic
-    design effect.
+    design effect; ``mean_cluster_size``: ``sum B_c^2 / sum B_c`` of the
+    denominator (near 1 when its clusters rarely repeat, where Kish's implied
+    correlation is not informative).
     """
 
     metric: str
@@ -553,7 +567,7 @@ class ClusterMetric:
     design_effect: float
     design_effect_bootstrap: float
     effective_size: float
-    icc: float
+    mean_cluster_size: float
     confidence: float
     method: str
 
@@ -673,8 +687,8 @@ def _metric_intervals(y, flagged, w, weight_kind, codes, K, metrics, n_rep, seed
             metric=m, label=METRIC_LABELS[m], estimate=p, naive_low=float(nlo),
             naive_high=float(nhi), low=float(lo), high=float(hi), trials=float(trials),
             design_effect=float(d), design_effect_bootstrap=float(deb),
-            effective_size=float(trials / d) if d > 0 else math.nan, icc=float(de["icc"]),
-            confidence=float(confidence),
+            effective_size=float(trials / d) if d > 0 else math.nan,
+            mean_cluster_size=float(de["mean_cluster_size"]), confidence=float(confidence),
             method=CLUSTER_METHOD_NAME if m in boot else "Wilson score interval (naive)"))
     return out
 
@@ -690,8 +704,9 @@ class ClusterSummary:
     clusters with at least one flagged row; ``event_clusters``: clusters with
     at least one event row; ``event_clusters_caught``: those with a flagged
     event row; ``cluster_recall``: their share with a Wilson interval over
-    clusters (clusters are independent). Counts are of rows and clusters,
-    unweighted.
+    clusters (clusters are independent). ``design_effect`` and ``icc``: of the
+    prevalence (the outcome), the ICC implied by Kish's formula. Counts are of
+    rows and clusters, unweighted.
     """
 
     column: str
@@ -711,6 +726,8 @@ class ClusterSummary:
     event_rows_flagged: int
     event_clusters_caught: int
     cluster_recall: tuple[float, float, float]
+    design_effect: float
+    icc: float
     metrics: tuple[ClusterMetric, ...]
     n_replicates: int
     seed: int
@@ -779,9 +796,10 @@ def cluster_summary(dataset, threshold: float, *, confidence: float = 0.95,
               f"clusters with an event had a flagged event row"
               + (f" (cluster-level recall {cr:.1%}, {confidence:.0%} Wilson interval over "
                  f"clusters {clo:.1%} to {chi:.1%})." if n_ev_c else "."))
+    icc = kish_icc(prev.design_effect, prev.mean_cluster_size)
     if np.isfinite(prev.design_effect):
         st.append(f"Design effect of the prevalence {prev.design_effect:.2f} (intra-cluster "
-                  f"correlation {prev.icc:.3f}); of recall {rec.design_effect:.2f}: intervals "
+                  f"correlation {icc:.3f}); of recall {rec.design_effect:.2f}: intervals "
                   "that treat rows as independent are too narrow by about the square root of "
                   "the design effect where it exceeds 1.")
     methods = {"design_effect": DESIGN_EFFECT_METHOD,
@@ -795,6 +813,7 @@ def cluster_summary(dataset, threshold: float, *, confidence: float = 0.95,
         rows_flagged=int(flagged.sum()), clusters_flagged=int(flagged_c.sum()),
         event_rows=int(y.sum()), event_clusters=n_ev_c,
         event_rows_flagged=int((y & flagged).sum()), event_clusters_caught=n_caught,
-        cluster_recall=(float(cr), float(clo), float(chi)), metrics=tuple(metrics),
+        cluster_recall=(float(cr), float(clo), float(chi)),
+        design_effect=float(prev.design_effect), icc=float(icc), metrics=tuple(metrics),
         n_replicates=int(n_replicates), seed=int(seed), confidence=float(confidence),
         methods=methods, statements=tuple(st))

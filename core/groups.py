@@ -76,31 +76,38 @@ from scipy import stats
 
 from core import intervals as _iv
 from core.bootstrap import DEFAULT_REPLICATES, percentile_interval
-from core.clusters import (CLUSTER_METHOD_NAME, METRIC_CELLS, METRIC_LABELS, cluster_codes,
-                           cluster_matrix, resample_cluster_sums, uses_cluster_bootstrap)
+from core.clusters import (
+    CLUSTER_METHOD_NAME,
+    METRIC_CELLS,
+    METRIC_LABELS,
+    cluster_codes,
+    cluster_matrix,
+    resample_cluster_sums,
+    uses_cluster_bootstrap,
+)
 from core.errors import InputError
 
 __all__ = [
-    "GROUP_METRICS",
-    "TABLE_METRICS",
     "ADJUSTMENTS",
+    "BASIS_STATEMENT",
+    "FEW_GROUP_EVENTS",
+    "GROUP_METRICS",
     "INTERVALS",
     "MISSING_GROUP",
-    "FEW_GROUP_EVENTS",
-    "TRADEOFF_STATEMENT",
     "PER_GROUP_THRESHOLDS",
-    "BASIS_STATEMENT",
-    "newcombe_interval",
-    "newcombe_p_value",
-    "holm_adjust",
-    "GroupValue",
-    "GroupDifference",
-    "GroupRow",
+    "TABLE_METRICS",
+    "TRADEOFF_STATEMENT",
     "FairnessComparison",
     "FairnessResult",
+    "GroupDifference",
+    "GroupRow",
+    "GroupValue",
     "SubgroupReport",
-    "subgroup_report",
     "fairness_verdict",
+    "holm_adjust",
+    "newcombe_interval",
+    "newcombe_p_value",
+    "subgroup_report",
 ]
 
 #: Metrics of every group, in display order.
@@ -1007,7 +1014,7 @@ def _fairness(fair, fparts, sums, total, reps, rep_total, sampling, conf, adjust
     else:
         overall = "unclear"
     m = len(verdicts)
-    how = (f"cluster bootstrap percentile intervals of each gap" if boot else
+    how = ("cluster bootstrap percentile intervals of each gap" if boot else
            "Newcombe's hybrid score interval of each gap")
     adj = (f"Holm-adjusted across the {m} groups compared" if adjust == "holm" else
            "not adjusted for multiplicity (exploratory)")
@@ -1015,10 +1022,10 @@ def _fairness(fair, fparts, sums, total, reps, rep_total, sampling, conf, adjust
               f"it lies entirely outside, else 'unclear'; the p-values of 'outside' and "
               f"'within' invert the interval and are {adj}")
     against_txt = (f"the reference group {ref!r}" if ref else "the rest of the cases")
-    st = [f"Fairness criterion: {label} parity, each group of {', '.join(fair.groups)} against "
-          f"{against_txt}, within +/-{tol:g} ({method}). Verdict: {overall}.",
-          TRADEOFF_STATEMENT + f" This policy targets {label} parity; the other metrics are "
-          "reported, not judged.",
+    st = [(f"Fairness criterion: {label} parity, each group of {', '.join(fair.groups)} "
+           f"against {against_txt}, within +/-{tol:g} ({method}). Verdict: {overall}."),
+          (TRADEOFF_STATEMENT + f" This policy targets {label} parity; the other metrics are "
+           "reported, not judged."),
           ]
     if metric in ("precision", "npv", "flag_rate"):
         st.append(f"{METRIC_LABELS[metric]} depends on prevalence: it is judged at the validation "

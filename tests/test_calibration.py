@@ -13,9 +13,16 @@ from sklearn.linear_model import LogisticRegression
 from sklearn.metrics import brier_score_loss
 from statsmodels.stats.proportion import proportion_confint
 
-from core.calibration import (CRITERION, DEFAULT_EPS, brier_score, calibration_intercept_slope,
-                              calibration_report, expected_calibration_error,
-                              observed_expected_ratio, reliability_curve)
+from core.calibration import (
+    CRITERION,
+    DEFAULT_EPS,
+    brier_score,
+    calibration_intercept_slope,
+    calibration_report,
+    expected_calibration_error,
+    observed_expected_ratio,
+    reliability_curve,
+)
 from core.dataset import Dataset
 from core.errors import InputError
 

@@ -10,10 +10,20 @@ from scipy.stats import norm
 from statsmodels.stats.proportion import proportion_confint
 
 from core.bootstrap import bootstrap, event_cells, percentile_interval
-from core.clusters import (COUNT_TABLE_NO_CLUSTERS, ClusterBootstrapResult, cluster_bootstrap,
-                           cluster_bootstrap_counts, cluster_codes, cluster_draws,
-                           cluster_metric_intervals, cluster_statement, cluster_summary,
-                           ratio_design_effect, resample_cluster_sums, uses_cluster_bootstrap)
+from core.clusters import (
+    COUNT_TABLE_NO_CLUSTERS,
+    ClusterBootstrapResult,
+    cluster_bootstrap,
+    cluster_bootstrap_counts,
+    cluster_codes,
+    cluster_draws,
+    cluster_metric_intervals,
+    cluster_statement,
+    cluster_summary,
+    ratio_design_effect,
+    resample_cluster_sums,
+    uses_cluster_bootstrap,
+)
 from core.dataset import Dataset
 from core.errors import InputError
 
@@ -42,7 +52,7 @@ def test_cluster_codes_and_their_errors():
     with pytest.raises(InputError) as e:
         cluster_codes(ct)
     assert COUNT_TABLE_NO_CLUSTERS in str(e.value)
-    y, s, ids, _, _ = _clustered(k=20)
+    y, s, _, _, _ = _clustered(k=20)
     with pytest.raises(InputError, match="no cluster column"):
         cluster_codes(Dataset.from_arrays(y, s))
     with pytest.raises(InputError, match="count table"):
@@ -117,7 +127,7 @@ def test_cluster_bootstrap_result_works_with_the_evidence_helpers():
     ivs = {i.metric: i for i in bootstrap_intervals(res, t)}
     assert ivs["recall"].low < ivs["recall"].estimate < ivs["recall"].high
     assert "cost" in ivs and "flagged_per_period" in ivs
-    grid, lo, hi = res.band("pr")
+    _, lo, hi = res.band("pr")
     assert np.all(lo[np.isfinite(lo)] <= hi[np.isfinite(lo)])
     # the same statistics as the cell bootstrap would compute from these replicate counts
     ch = next(cluster_bootstrap_counts(ds, res.cells, 300, seed=2))
@@ -275,6 +285,10 @@ def test_cluster_summary_counts_distinct_patients_by_hand():
         (cs.event_clusters_caught / cs.event_clusters, lo, hi), rel=1e-12)
     assert sum(cs.sizes.values()) == cs.n_clusters and "10+" in cs.sizes
     assert cs.max_size == 40
+    codes, K = cluster_codes(ids)
+    de = ratio_design_effect(y.astype(float), np.ones(y.shape[0]), codes, K)
+    assert cs.design_effect == pytest.approx(de["design_effect"], rel=1e-12)
+    assert cs.icc == pytest.approx(de["icc"], rel=1e-12)
     assert any("distinct clusters" in st for st in cs.statements)
     json.dumps(cs.to_dict(), allow_nan=False)
 

@@ -10,8 +10,16 @@ from statsmodels.stats.proportion import confint_proportions_2indep, proportion_
 
 from core.dataset import Dataset
 from core.errors import InputError
-from core.groups import (MISSING_GROUP, PER_GROUP_THRESHOLDS, TABLE_METRICS, TRADEOFF_STATEMENT,
-                         holm_adjust, newcombe_interval, newcombe_p_value, subgroup_report)
+from core.groups import (
+    MISSING_GROUP,
+    PER_GROUP_THRESHOLDS,
+    TABLE_METRICS,
+    TRADEOFF_STATEMENT,
+    holm_adjust,
+    newcombe_interval,
+    newcombe_p_value,
+    subgroup_report,
+)
 from core.policy import Fairness, Objective, Policy
 
 X1 = np.array([56, 9, 0, 0, 10, 3, 40, 1, 25, 7.0])
@@ -151,7 +159,7 @@ def test_subgroup_table_recomputed_by_hand():
 
 def test_exploratory_when_not_adjusted():
     # The multiplicity statement and the label "exploratory" (issue text).
-    y, s, site, age = _data(seed=1)
+    y, s, site, _ = _data(seed=1)
     ds = Dataset.from_arrays(y, s, groups={"site": site})
     rep = subgroup_report(ds, 0.2, adjust="none")
     for r in rep.rows:
@@ -241,7 +249,7 @@ def test_fairness_verdicts_equal_interval_rule_and_holm():
 
 def test_fairness_against_a_reference_group():
     # Reference "A": each other site against site A, Newcombe of the two groups (statsmodels).
-    y, s, site, age = _data(n=8000, seed=8)
+    y, s, site, _ = _data(n=8000, seed=8)
     ds = Dataset.from_arrays(y, s, groups={"site": site})
     f = subgroup_report(ds, 0.2, policy=_policy(metric="fpr", ref="A")).fairness
     assert [c.group for c in f.comparisons] == ["B", "C"]
@@ -255,7 +263,7 @@ def test_fairness_against_a_reference_group():
 
 
 def test_precision_fairness_says_it_is_judged_at_validation_counts():
-    y, s, site, age = _data(seed=9)
+    y, s, site, _ = _data(seed=9)
     ds = Dataset.from_arrays(y, s, groups={"site": site})
     f = subgroup_report(ds, 0.2, policy=_policy(metric="precision")).fairness
     assert any("each group at its own prevalence" in st for st in f.statements)
