@@ -409,3 +409,26 @@ def test_bool_labels_and_float_labels_accepted():
     for other in (b, c):
         np.testing.assert_array_equal(a.tp, other.tp)
         np.testing.assert_array_equal(a.fp, other.fp)
+
+
+@pytest.mark.parametrize("decimals", [None, 1])  # continuous: argsort path; coarse: hashed path
+@pytest.mark.parametrize("higher", [True, False])
+def test_weighted_event_cost_both_paths_equal_brute_force(decimals, higher):
+    rng = np.random.default_rng(21)
+    n = 4000
+    y = (rng.random(n) < 0.05).astype(int)
+    s = rng.normal(y, 1.0)
+    if decimals is not None:
+        s = np.round(s, decimals)
+    s[:3] = [-0.0, 0.0, -0.0]
+    w = rng.choice([0.25, 0.5, 1.0, 2.0], n)  # dyadic: sums exact in any order
+    a = rng.uniform(1, 100, n)
+    c = sweep(y, s, w, higher_is_riskier=higher, event_cost=a)
+    for k in range(0, c.n_points, max(1, c.n_points // 50)):
+        t = c.thresholds[k]
+        flagged = (s >= t) if higher else (s <= t)
+        assert c.tp[k] == np.sum(w[flagged & (y == 1)])
+        assert c.fp[k] == np.sum(w[flagged & (y == 0)])
+        assert c.event_cost_flagged[k] == pytest.approx(np.sum((w * a)[flagged & (y == 1)]), rel=1e-12, abs=1e-9)
+        assert c.tp_sq[k] == np.sum((w * w)[flagged & (y == 1)])
+    assert not np.signbit(c.thresholds).any() or np.all(c.thresholds[np.signbit(c.thresholds)] < 0)
