@@ -474,7 +474,7 @@ def cluster_bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int
     if not isinstance(data, Dataset):
         raise InputError("cluster", "the cluster bootstrap needs a Dataset with a cluster column "
                          "(a Curve has no rows)")
-    cluster_codes(data)  # raises for a count table, no cluster column or missing ids
+    _, K = cluster_codes(data)  # raises for a count table, no cluster column or missing ids
     ths = tuple(float(t) for t in thresholds)
     if cells is None:
         cells = event_cells(data, thresholds=ths)
