@@ -274,3 +274,50 @@ def band_figure(curve: Curve, band: dict, point: int | None, *, which: str = "pr
         traces.append(_marker_trace(px, py, "Operating point", _POINT, "operating point"))
     return _figure(traces, title, xl, yl, xaxis=dict(range=[-0.02, 1.02]), yaxis=dict(range=[-0.02, 1.02]),
                    height=380)
+
+
+def subgroup_figure(table, metric: str = "recall", *, overall: float | None = None,
+                    label: str = "Recall") -> go.Figure:
+    """One metric per subgroup with its interval (a ``SubgroupReport.table()``), overall line."""
+    t = table[~table["one_class"]] if "one_class" in table else table
+    names = [f"{c}: {g}" for c, g in zip(t["column"], t["group"])]
+    v = t[metric].to_numpy(dtype=float)
+    lo = t[f"{metric}_low"].to_numpy(dtype=float)
+    hi = t[f"{metric}_high"].to_numpy(dtype=float)
+    verdict = t.get(f"{metric}_verdict")
+    symbols = ["diamond" if (verdict is not None and str(x) == "differs") else "circle"
+               for x in (verdict if verdict is not None else [None] * len(v))]
+    traces = [dict(type="scatter", x=v, y=names, mode="markers", name=label,
+                   marker=dict(color=PALETTE["blue"], size=10, symbol=symbols),
+                   error_x=dict(type="data", symmetric=False, array=hi - v, arrayminus=v - lo,
+                                color=PALETTE["blue"], thickness=1.5),
+                   hovertemplate="%{y}: %{x:.3f}<extra></extra>")]
+    shapes, anns = [], []
+    if overall is not None and np.isfinite(overall):
+        sh, an = _vline(float(overall), PALETTE["vermillion"], dash="dash", label="all cases")
+        shapes.append(sh)
+        anns.append(an)
+    return _figure(traces, f"{label} by subgroup at the threshold (◆ differs from the rest, Holm-adjusted)",
+                   f"{label} with its interval", "Subgroup", height=max(300, 40 * len(names) + 120),
+                   yaxis=dict(autorange="reversed"), shapes=shapes, annotations=anns, showlegend=False)
+
+
+def reliability_figure(reliability: dict, *, title: str = "Reliability: observed against predicted") -> go.Figure:
+    """Observed event rate per bin against the mean predicted probability, with intervals."""
+    x = np.asarray(reliability["mean_predicted"], dtype=float)
+    y = np.asarray(reliability["observed"], dtype=float)
+    lo = np.asarray([np.nan if v is None else v for v in reliability["low"]], dtype=float)
+    hi = np.asarray([np.nan if v is None else v for v in reliability["high"]], dtype=float)
+    top = float(np.nanmax(np.r_[x, hi, 0.01]))
+    traces = [
+        dict(type="scatter", x=[0, top], y=[0, top], mode="lines", name="Perfect calibration",
+             line=dict(color=PALETTE["grey"], dash="dash"), hoverinfo="skip"),
+        dict(type="scatter", x=x, y=y, mode="lines+markers", name="Observed (95 % interval)",
+             marker=dict(color=PALETTE["blue"], size=8), line=dict(color=PALETTE["blue"]),
+             error_y=dict(type="data", symmetric=False, array=hi - y, arrayminus=y - lo,
+                          color=PALETTE["blue"], thickness=1.5),
+             customdata=np.asarray(reliability["cases"], dtype=float),
+             hovertemplate="predicted %{x:.4f}<br>observed %{y:.4f}<br>%{customdata:,.0f} cases<extra></extra>"),
+    ]
+    return _figure(traces, title, "Mean predicted probability in the bin", "Observed event rate in the bin",
+                   xaxis=dict(range=[0, top * 1.05]), yaxis=dict(range=[0, top * 1.05]), height=400)

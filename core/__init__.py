@@ -51,3 +51,10 @@ __all__ += ["DESIGNS", "BootstrapResult", "EventCells", "bootstrap", "bootstrap_
             "harrell_correction", "optimism", "ThresholdStability", "threshold_stability", "Evidence",
             "Interval", "bootstrap_intervals", "curve_intervals", "events_for_recall_half_width",
             "evidence", "few_events_statement", "point_intervals"]
+
+from core.calibration import CalibrationReport, calibration_report  # noqa: E402
+from core.clusters import ClusterSummary, cluster_bootstrap, cluster_summary  # noqa: E402
+from core.groups import SubgroupReport, fairness_verdict, subgroup_report  # noqa: E402
+
+__all__ += ["CalibrationReport", "calibration_report", "ClusterSummary", "cluster_bootstrap",
+            "cluster_summary", "SubgroupReport", "fairness_verdict", "subgroup_report"]

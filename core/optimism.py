@@ -116,6 +116,14 @@ def _stratified_folds(y: np.ndarray, k: int, rng) -> np.ndarray:
     return fold
 
 
+def _cluster_folds(codes: np.ndarray, n_clusters: int, y: np.ndarray, k: int, rng) -> np.ndarray:
+    """Folds of whole clusters (a patient's rows never straddle training and test),
+    stratified by whether the cluster holds an event; each row takes its cluster's fold."""
+    has_event = np.bincount(codes[y], minlength=n_clusters) > 0
+    cluster_fold = _stratified_folds(has_event, k, rng)
+    return cluster_fold[codes]
+
+
 def _split_counts(counts: np.ndarray, k: int, rng) -> np.ndarray:
     """(k, C) fold counts of integer cell counts: a uniformly random partition of
     the cases into folds of sizes n // k (+1 for the first n % k)."""
@@ -144,7 +152,13 @@ def _fold_cells(data, cells: EventCells, k: int, seed: int):
         if int(y.sum()) < k:
             raise InputError("k", f"cross-fitting with {k} folds needs at least {k} events; "
                              f"the data hold {int(y.sum())}")
-        fold = _stratified_folds(y, k, rng)
+        if ds.cluster is not None:
+            from core.clusters import cluster_codes
+
+            codes, n_clusters = cluster_codes(ds)
+            fold = _cluster_folds(codes, n_clusters, y, k, rng)
+        else:
+            fold = _stratified_folds(y, k, rng)
         cell = cells.cell_of(ds.y_score)
         w = np.ones(y.shape[0]) if ds.sample_weight is None else ds.sample_weight
         key = fold * C + cell
@@ -262,7 +276,10 @@ def cross_fit(data, policy: Policy, *, k: int = DEFAULT_FOLDS, seed: int = 0,
     is_rows = isinstance(data, Dataset) and data.kind == "rows"
     method = (f"stratified {k}-fold cross-fitting (seed {seed}): choose on {k - 1} folds, count "
               f"the held-out fold at that threshold, pool the held-out counts; "
-              + ("rows assigned by a seeded permutation within each class"
+              + (("whole clusters assigned to folds (stratified by whether the cluster holds an "
+                  "event), so a cluster's rows never straddle training and test"
+                  if data.cluster is not None else
+                  "rows assigned by a seeded permutation within each class")
                  if is_rows else "cells split by multivariate hypergeometric draws"))
     return CrossFit(k=k, seed=int(seed), thresholds=tuple(ths), n_infeasible_folds=bad,
                     counts=counts, values=values, prevalence=float(rp.prevalence), method=method)

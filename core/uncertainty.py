@@ -56,6 +56,7 @@ from core.bootstrap import (DEFAULT_FPR_GRID, DEFAULT_RECALL_GRID, DEFAULT_REPLI
                             BootstrapResult, _check_design, bootstrap, event_cells,
                             percentile_interval)
 from core.cautions import FEW_EVENTS
+from core.clusters import cluster_bootstrap, cluster_statement, uses_cluster_bootstrap
 from core.errors import InputError
 
 __all__ = [
@@ -93,6 +94,11 @@ _LABELS = {
 }
 
 BOOTSTRAP_METHOD = "bootstrap percentile interval (exact cell bootstrap)"
+
+
+def _method_name(result) -> str:
+    """The bootstrap's own name (the cluster bootstrap names itself)."""
+    return getattr(result, "method_name", BOOTSTRAP_METHOD)
 
 
 @dataclass(frozen=True)
@@ -293,7 +299,7 @@ def bootstrap_intervals(result: BootstrapResult, threshold: float, *, confidence
     def add(metric, values, estimate, basis, note=None):
         lo, hi = percentile_interval(values, confidence)
         out.append(Interval(metric, _LABELS[metric], float(estimate), float(lo), float(hi),
-                            float(confidence), "bootstrap", BOOTSTRAP_METHOD, basis,
+                            float(confidence), "bootstrap", _method_name(result), basis,
                             note=desc if note is None else f"{note}; {desc}"))
 
     for m in ("recall", "specificity", "precision", "npv", "flag_rate"):
@@ -338,7 +344,7 @@ def curve_intervals(result: BootstrapResult, *, confidence: float = 0.95) -> lis
                          ("average_precision", result.average_precision, c.average_precision)):
         lo, hi = percentile_interval(vals, confidence)
         out.append(Interval(m, _LABELS[m], float(est), float(lo), float(hi), float(confidence),
-                            "bootstrap", BOOTSTRAP_METHOD, "validation", note=result.describe()))
+                            "bootstrap", _method_name(result), "validation", note=result.describe()))
     return out
 
 
@@ -509,10 +515,14 @@ def evidence(data, policy, *, threshold: float | None = None,
     # stability is about the policy's own choice, also beside a pre-specified threshold
     col0 = data_choice_column(cells, ch if origin == "derived" else choose(data, policy))
     coll = StabilityCollector(chooser, n_replicates)
-    res = bootstrap(data, n_replicates=n_replicates, seed=seed, design=design, thresholds=ths,
-                    prevalence=pi_fixed, costs=costs, cases_per_period=rp.cases_per_period,
-                    recall_grid=recall_grid, fpr_grid=fpr_grid, chunk=chunk, progress=progress,
-                    collectors=(coll,), cells=cells, n_jobs=n_jobs)
+    common = dict(n_replicates=n_replicates, seed=seed, thresholds=ths, prevalence=pi_fixed,
+                  costs=costs, cases_per_period=rp.cases_per_period, recall_grid=recall_grid,
+                  fpr_grid=fpr_grid, chunk=chunk, progress=progress, collectors=(coll,), cells=cells)
+    if uses_cluster_bootstrap(data, design):
+        # repeated cases (a cluster column): every interval and band resamples whole clusters
+        res = cluster_bootstrap(data, **common)
+    else:
+        res = bootstrap(data, design=design, n_jobs=n_jobs, **common)
     stab = _summarise(coll, cells, col0, seed=seed, design=design, notes=chooser.notes)
     analytic: list[Interval] = []
     boot: list[Interval] = []
@@ -553,7 +563,7 @@ def evidence(data, policy, *, threshold: float | None = None,
     need = events_for_recall_half_width(rec if rec is not None and np.isfinite(rec) else 0.5,
                                         0.05, confidence)
     statements = [design_statement(design), weights_statement(cells.weight_kind, cells),
-                  f"Bootstrap: {res.describe()}.", statement]
+                  cluster_statement(data, design), f"Bootstrap: {res.describe()}.", statement]
     statements.extend(stab.notes)
     statements.extend(res.notes)
     return Evidence(threshold=t, threshold_origin=origin, design=design,

@@ -72,3 +72,17 @@ def test_flag_none_has_no_pr_marker():
     c = sweep([0, 1, 0, 1], [0.1, 0.4, 0.35, 0.8])
     fig = _check(charts.pr_figure(c, 0))
     assert not any(t.name == "Operating point" for t in fig.data)  # precision 0/0 is not drawn
+
+
+def test_subgroup_and_reliability_figures():
+    from core.calibration import calibration_report
+    from core.groups import subgroup_report
+    from core.intake import load_demo
+
+    ds = load_demo("hospital_q1")
+    table = subgroup_report(ds, 0.0182, interval="analytic").table()
+    fig = _check(charts.subgroup_figure(table, "recall", overall=0.82))
+    assert len(fig.data[0].x) == int((~table["one_class"]).sum())
+    rel = calibration_report(ds).to_dict()["overall"]["reliability"]
+    fig = _check(charts.reliability_figure(rel))
+    assert tuple(fig.data[1].y) == tuple(rel["observed"])

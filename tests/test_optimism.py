@@ -190,3 +190,23 @@ def test_capacity_quantile_policy_cross_fits_on_row_subsets():
     fold = _stratified_folds(ds.y_true, 4, np.random.default_rng(1))
     naive = [choose(ds.subset(fold != j), pol).point.threshold for j in range(4)]
     assert all(full - th > 0.1 for th in naive)
+
+
+def test_cross_fitting_keeps_clusters_whole():
+    # Common practice, no source: with repeated cases, folds must split patients, not rows.
+    import numpy as np
+
+    from core.bootstrap import event_cells
+    from core.dataset import Dataset
+    from core.optimism import _fold_cells
+
+    rng = np.random.default_rng(8)
+    n_clusters, size = 400, 5
+    cl = np.repeat(np.arange(n_clusters), size)
+    y = rng.random(cl.size) < 0.1
+    s = rng.normal(y * 1.0, 1.0)
+    ds = Dataset.from_arrays(y, s, cluster=cl.astype(str))
+    _, fold = _fold_cells(ds, event_cells(ds), 5, 0)
+    per_cluster = [np.unique(fold[cl == c]).size for c in range(n_clusters)]
+    assert max(per_cluster) == 1
+    assert np.bincount(fold).min() >= 0.15 * cl.size  # folds stay balanced

@@ -29,6 +29,14 @@ def _cost_table(fingerprint: str, policy_text: str, _dataset, _policy):
     return cost_by_threshold(_dataset, _policy)
 
 
+@st.cache_resource(max_entries=8, show_spinner=False)
+def _looks_calibrated(fingerprint: str, _dataset) -> bool:
+    """The calibration criterion of ``core.calibration`` decides whether the cost-derived threshold shows."""
+    from core.calibration import calibration_report
+
+    return bool(calibration_report(_dataset, groups=False).looks_calibrated)
+
+
 @st.cache_resource(max_entries=16, show_spinner=False)
 def _thin(fingerprint: str, _curve):
     idx = charts.thin(_curve, "roc")
@@ -116,10 +124,11 @@ def _policy_line(rp) -> str:
 def _results(ds, act, policy) -> None:
     curve = ds.curve()
     text = dumps_policy(policy)
-    calibrated = False
-    if ds.scores_in_unit_interval:
-        calibrated = st.checkbox("These scores are calibrated probabilities (enables the cost-derived "
-                                 "threshold)", key="decide_calibrated")
+    calibrated = _looks_calibrated(ds.fingerprint, ds) if ds.scores_in_unit_interval else False
+    st.caption(("The scores look calibrated by the stated criterion (Evidence page), so the cost-derived "
+                "threshold is shown." if calibrated else
+                "The scores are not shown to be calibrated probabilities (Evidence page), so no "
+                "cost-derived threshold is offered: only the empirical search counts."))
     try:
         choice = _choice(ds.fingerprint, text, calibrated, ds, policy)
     except PolicyError as exc:

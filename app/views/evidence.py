@@ -18,6 +18,9 @@ RATES = {"recall", "specificity", "precision", "npv", "flag_rate"}
 
 
 _CACHE = BoundedCache(max_entries=8)
+_GROUPS = BoundedCache(max_entries=8)
+_CALIBRATION = BoundedCache(max_entries=8)
+_CLUSTERS = BoundedCache(max_entries=8)
 
 
 def _evidence(key: tuple, dataset, policy, progress):
@@ -182,6 +185,112 @@ def render() -> None:
     with st.expander("How these numbers were computed"):
         for s in ev.statements:
             st.markdown(f"- {s}")
+
+    _subgroups_block(ds, policy, ev, key)
+    _clusters_block(ds, ev, key)
+    _calibration_block(ds)
+
+
+def _subgroups_block(ds, policy, ev, key) -> None:
+    from core.groups import subgroup_report
+
+    st.header("Subgroups and fairness")
+    if ds.kind == "counts" and not ds.groups:
+        st.info("This count table carries no group columns; add them to the GROUP BY to see subgroups.")
+        return
+    if not ds.groups:
+        st.info("No group column is mapped (Scores page): map site, age band or segment to check subgroups.")
+        return
+    cols = list(ds.groups)
+    inter = []
+    if len(cols) >= 2:
+        if st.checkbox(f"Also the intersection {cols[0]} × {cols[1]}", key=K + "inter"):
+            inter = [(cols[0], cols[1])]
+    adjust = st.radio("Multiplicity", ["holm", "none"], horizontal=True, key=K + "adjust",
+                      format_func=lambda a: "Holm-adjusted verdicts" if a == "holm" else
+                      "No adjustment (verdicts labelled exploratory)")
+    bar = st.progress(0.0, text="Subgroups…")
+    rep = _GROUPS.get_or_compute(
+        key + ("groups", tuple(inter), adjust),
+        lambda: subgroup_report(ds, ev.threshold, policy=policy, intersections=inter, adjust=adjust,
+                                n_replicates=ev.n_replicates, seed=ev.seed,
+                                progress=lambda d_, t_: bar.progress(min(d_ / max(t_, 1), 1.0),
+                                                                      text=f"Subgroups: {d_:,} of {t_:,}")))
+    bar.empty()
+    t = rep.table()
+    show = pd.DataFrame({
+        "Group": [f"{c}: {g}" for c, g in zip(t["column"], t["group"])],
+        "Cases": [fmt.count(v) for v in t["cases"]], "Events": [fmt.count(v) for v in t["events"]],
+        "Prevalence": [fmt.pct(v, 2) for v in t["prevalence"]],
+        **{name: [f"{fmt.pct(v)} ({fmt.pct(lo)}–{fmt.pct(hi)})" for v, lo, hi in
+                  zip(t[m], t[f"{m}_low"], t[f"{m}_high"])]
+           for m, name in (("precision", "Precision"), ("recall", "Recall"), ("specificity", "Specificity"),
+                           ("flag_rate", "Flag rate"))},
+        "Recall vs rest": list(t["recall_verdict"]),
+    })
+    st.dataframe(show, hide_index=True)
+    overall = ds.curve().at(ev.threshold).metrics["recall"]
+    st.plotly_chart(charts.subgroup_figure(t, "recall", overall=overall), key=K + "groups_chart",
+                    config={"displaylogo": False})
+    if rep.fairness is not None:
+        f = rep.fairness
+        st.subheader(f"Fairness criterion: {f.label} — {f.verdict}")
+    for line in rep.statements:
+        st.markdown(f"- {line}")
+
+
+def _clusters_block(ds, ev, key) -> None:
+    from core.clusters import cluster_summary
+
+    if ds.kind != "rows" or ds.cluster is None:
+        return
+    st.header("Repeated cases")
+    cs = _CLUSTERS.get_or_compute(key + ("clusters",), lambda: cluster_summary(
+        ds, ev.threshold, n_replicates=ev.n_replicates, seed=ev.seed))
+    d = cs.to_dict()
+    c = st.columns(4)
+    c[0].metric("Distinct clusters", fmt.count(d["n_clusters"]))
+    c[1].metric("Clusters flagged", fmt.count(d["clusters_flagged"]))
+    c[2].metric("Clusters with an event caught", f"{fmt.count(d['event_clusters_caught'])} of "
+                f"{fmt.count(d['event_clusters'])}")
+    c[3].metric("Design effect", fmt.num(d["design_effect"], 2) if d.get("design_effect") is not None else "—",
+                help="Variance of the clustered estimate over that of independent cases (Kish).")
+    for line in d["statements"]:
+        st.markdown(f"- {line}")
+
+
+def _calibration_block(ds) -> None:
+    from core.calibration import calibration_report
+
+    st.header("Calibration")
+    rep = _CALIBRATION.get_or_compute((ds.fingerprint, "calibration"), lambda: calibration_report(ds))
+    d = rep.to_dict()
+    if not d["available"]:
+        st.info(d["reason"])
+        return
+    o = d["overall"]
+    fit = o["fit"]
+    verdict = "look calibrated" if d["looks_calibrated"] else "do not look calibrated"
+    st.markdown(f"**These scores {verdict}** by the stated criterion: {d['criterion']}")
+    c = st.columns(5)
+    c[0].metric("Calibration slope", f"{fmt.num(fit['slope'], 2)}",
+                help=f"95 % interval {fmt.num(fit['slope_low'], 2)} to {fmt.num(fit['slope_high'], 2)}")
+    c[1].metric("Intercept (in the large)", f"{fmt.num(fit['intercept'], 2)}",
+                help=f"95 % interval {fmt.num(fit['intercept_low'], 2)} to {fmt.num(fit['intercept_high'], 2)}")
+    c[2].metric("Observed / expected", fmt.num(o["oe_ratio"], 2),
+                help=f"95 % interval {fmt.num(o['oe_low'], 2)} to {fmt.num(o['oe_high'], 2)}")
+    c[3].metric("Brier score", fmt.num(o["brier"], 4), help=f"Predicting the prevalence: {fmt.num(o['brier_prevalence'], 4)}")
+    c[4].metric("Expected calibration error", fmt.num(o["ece"], 4))
+    st.plotly_chart(charts.reliability_figure(o["reliability"]), key=K + "reliability",
+                    config={"displaylogo": False})
+    if d["groups"]:
+        st.dataframe(pd.DataFrame([{
+            "Group": f"{g['column']}: {g['group']}", "Events": fmt.count(g["events"]),
+            "Observed / expected": fmt.num(g["oe_ratio"], 2), "Slope": fmt.num(g["fit"]["slope"], 2),
+            "Intercept": fmt.num(g["fit"]["intercept"], 2), "Verdict": g["verdict"]} for g in d["groups"]]),
+            hide_index=True)
+    for line in d["statements"][1:]:
+        st.markdown(f"- {line}")
 
 
 render()

@@ -23,13 +23,20 @@ from core import cautions
 from core.bootstrap import DEFAULT_REPLICATES
 from core.decision import MIN_REPLICATES, ORIGINS, analyse
 from core.errors import InputError
-from core.memo_csv import test_vectors_csv
-from core.memo_fields import (DECISIONS, FIELDS, INDEPENDENCE, LABELS, NESTED, check_memo_fields,
-                              default_memo_fields, dumps_memo_fields, loads_memo_fields)
+from core.memo_csv import threshold_vectors_csv
+from core.memo_fields import (
+    DECISIONS,
+    FIELDS,
+    INDEPENDENCE,
+    LABELS,
+    NESTED,
+    check_memo_fields,
+    dumps_memo_fields,
+    loads_memo_fields,
+)
 from core.memo_markdown import memo_markdown
 from core.policy import Policy, PolicyError, dumps_policy
-from core.record import (build_record, dumps_record, fingerprint_note, loads_record,
-                         restore_decision)
+from core.record import build_record, dumps_record, fingerprint_note, loads_record, restore_decision
 
 MEMO_FIELDS_DIR = Path(__file__).resolve().parents[2] / "sample_data" / "memo_fields"
 K = "memo_"                              # widget-key prefix
@@ -399,7 +406,7 @@ def render() -> None:
                        mime="text/markdown", key=K + "dl_md")
     d3.download_button("Decision record (JSON)", dumps_record(record), file_name="decision_record.json",
                        mime="application/json", key=K + "dl_record")
-    d4.download_button("Test vectors (CSV)", test_vectors_csv(record), file_name="test_vectors.csv",
+    d4.download_button("Test vectors (CSV)", threshold_vectors_csv(record), file_name="test_vectors.csv",
                        mime="text/csv", key=K + "dl_vectors")
     with st.expander("Preview the memo (Markdown)"):
         st.markdown(memo_markdown(record))
