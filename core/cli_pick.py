@@ -88,7 +88,12 @@ def add_pick(sub) -> None:
 
 
 def mapping_from_args(args, raw=None):
-    """The :class:`~core.dataset.Mapping` the options describe (the event value resolved)."""
+    """The :class:`~core.dataset.Mapping` the options describe.
+
+    Without ``--positive``, a table already read (``raw``) whose labels are 0/1
+    (or true/false) gets the event value 1 (true); otherwise the intake asks
+    which value marks the event.
+    """
     from core.dataset import Mapping
     from core.intake import label_values
 
@@ -115,16 +120,15 @@ def mapping_from_args(args, raw=None):
                    drop_missing_scores=bool(args.drop_missing_scores))
 
 
-def _columns(args) -> dict:
-    cols = {args.score: "the score", args.label: "the label"}
-    for name, role in ((args.weight, "the weight"), (args.cluster, "the cluster id"),
-                       (args.score_time, "the score time"), (args.outcome_time, "the outcome time"),
-                       (args.case_cost, "the case cost")):
-        if name:
-            cols[name] = role
-    for g in args.group:
-        cols[g] = "a group"
-    return cols
+def _load(args):
+    """Read and check the data exactly as the app does (same messages)."""
+    from core.intake import _mapped_columns, load_dataset, read_table
+
+    mapping = mapping_from_args(args)
+    if mapping.positive_label is not None:
+        return load_dataset(args.data, mapping, sheet=args.sheet)
+    raw = read_table(args.data, sheet=args.sheet, columns=_mapped_columns(mapping))
+    return load_dataset(raw, mapping_from_args(args, raw))
 
 
 def _progress_printer():
@@ -148,7 +152,6 @@ def _progress_printer():
 def run_pick(args) -> int:
     """Run ``fulcrum pick`` (see the module docstring)."""
     from core.decision import analyse
-    from core.intake import load_dataset, read_table
     from core.memo_fields import load_memo_fields
     from core.policy import Policy, load_policy
     from core.record import build_record, write_record
@@ -165,9 +168,7 @@ def run_pick(args) -> int:
         if path and not Path(path).resolve().parent.is_dir():
             raise InputError(opt, f"the folder of {path} does not exist")
     say(f"reading {args.data}")
-    raw = read_table(args.data, sheet=args.sheet, columns=_columns(args))
-    mapping = mapping_from_args(args, raw)
-    dataset = load_dataset(raw, mapping)
+    dataset = _load(args)
     say(f"{dataset.n_rows:,} cases, {dataset.n_events:,.0f} events; choosing and resampling")
     analysis = analyse(dataset, policy, threshold=args.threshold, origin=args.origin,
                        design=args.design, seed=args.seed, n_replicates=args.replicates,

@@ -452,7 +452,10 @@ def memo_blocks(record: dict) -> list[Block]:
         boot_rows.append((_CURVE_LABELS.get(name, name), fmt_ci(e, lambda v: fmt_num(v, 4)),
                           "validation, over all thresholds"))
     if boot_rows:
-        add(Block("p", "Bootstrap percentile intervals (exact cell bootstrap):"))
+        methods = sorted({e["bootstrap"]["method"] for e in m["deployment"].values()
+                          if isinstance(e, dict) and e.get("bootstrap")})
+        add(Block("p", "Bootstrap intervals" + (f" ({'; '.join(methods)})" if methods else "")
+                  + ":"))
         add(Block("table", header=("Quantity", "95 % interval", "Basis"), rows=tuple(boot_rows),
                   widths=(0.3, 0.4, 0.3)))
     add(Block("p", _cautions.ACCURACY_TRAP + f" Here accuracy is "

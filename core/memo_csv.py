@@ -1,6 +1,6 @@
 """CSV tables of a decision record, guarded against spreadsheet formula injection.
 
-:func:`test_vectors_csv` (the scores either side of the threshold with their
+:func:`threshold_vectors_csv` (the scores either side of the threshold with their
 expected decisions, for whoever implements the threshold in the live
 system) and :func:`metrics_csv` (every metric with its intervals at
 validation and deployment prevalence). A spreadsheet runs a text cell that
@@ -15,7 +15,7 @@ import csv
 import io
 import math
 
-__all__ = ["FORMULA_STARTS", "csv_cell", "test_vectors_csv", "metrics_csv"]
+__all__ = ["FORMULA_STARTS", "csv_cell", "threshold_vectors_csv", "metrics_csv"]
 
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 
@@ -45,7 +45,7 @@ def _write(header, rows) -> str:
     return buf.getvalue()
 
 
-def test_vectors_csv(record: dict) -> str:
+def threshold_vectors_csv(record: dict) -> str:
     """The record's test vectors as CSV: score (number), text, position, expected decision."""
     tv = record["test_vectors"]
     rows = [(v["score"], v["text"], v["position"], "flag" if v["flagged"] else "no flag")

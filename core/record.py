@@ -40,7 +40,7 @@ then the integrity digests (naming the changed sections).
 point it was made with; :func:`fingerprint_note` says plainly when the data
 at hand differ from the record's.
 
-Test vectors (:func:`test_vectors`): scores just either side of the
+Test vectors (:func:`threshold_test_vectors`): scores just either side of the
 threshold, written at the production rounding the user states, each with
 the decision the live system must make, so whoever implements ``score >=
 threshold`` (or ``<=``) can check the rounding and the comparison.
@@ -78,7 +78,7 @@ __all__ = [
     "load_record",
     "check_record",
     "without_timestamps",
-    "test_vectors",
+    "threshold_test_vectors",
     "reference_summary",
     "build_record",
     "RestoredDecision",
@@ -392,7 +392,7 @@ def _decide(score: float, threshold: float, higher_is_riskier: bool) -> bool:
     return score >= threshold if higher_is_riskier else score <= threshold
 
 
-def test_vectors(threshold: float, *, higher_is_riskier: bool = True,
+def threshold_test_vectors(threshold: float, *, higher_is_riskier: bool = True,
                  production_decimals: int | None = None, each_side: int = 2) -> dict:
     """Scores either side of ``threshold`` with the decision the live system must make.
 
@@ -892,7 +892,7 @@ def build_record(analysis, *, memo_fields=None, supersedes: str | None = None,
         "fairness": a.fairness,
         "calibration": a.calibration,
         "reference": reference_summary(a.dataset),
-        "test_vectors": test_vectors(s_k, higher_is_riskier=c.higher_is_riskier,
+        "test_vectors": threshold_test_vectors(s_k, higher_is_riskier=c.higher_is_riskier,
                                      production_decimals=a.production_decimals),
         "memo": memo,
         "threshold_entered": None if entered is None or entered == s_k else entered,
