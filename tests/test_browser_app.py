@@ -121,6 +121,14 @@ def test_point_moves_by_keyboard_mouse_and_click_and_survives_page_switches(app_
         wait_idle(page)
         screenshot(page, "05-decide")
         assert "Recommended operating point" in page.locator('[data-testid="stMain"]').inner_text()
+        page.get_by_role("link", name="Evidence").click()
+        page.wait_for_function(
+            """() => document.querySelector('[data-testid="stMain"]')?.innerText.includes('Calibration')""",
+            timeout=120_000)
+        wait_idle(page)
+        main = page.locator('[data-testid="stMain"]').inner_text()
+        assert "Every number at the point, with its interval" in main and "Subgroups and fairness" in main
+        screenshot(page, "06-evidence")
         page.get_by_role("link", name="Scores").click()
         wait_idle(page)
         page.get_by_role("link", name="Trade-offs").click()
