@@ -59,6 +59,16 @@ sets of counts with pure functions over arrays:
   two independent proportions (:func:`core.groups.newcombe_interval`;
   Newcombe, Stat Med 1998, method 10).
 
+* **Calibration drift** (:func:`calibration_drift`): the calibration
+  intercept (in the large), slope and observed / expected of
+  :mod:`core.calibration` on the new data against the record's. Each is
+  judged on the new data against its ideal (0, 1, 1): **fails** when its
+  interval excludes the ideal, **holds** when it contains it with at least
+  100 events, **unclear** otherwise; the change since approval gets a Wald
+  interval (intercept, slope) or the Katz log interval of a ratio (O/E).
+  Scores can stay put while outcomes move -- PSI low, O/E far from 1 --
+  and this is the check that catches it.
+
 :func:`score_drift` runs all of it for a reference and a new
 :class:`ScoreBins`. Weighted counts are accepted; their effective sizes
 (Kish's, for sampling weights) set the noise levels and the prevalence
@@ -94,6 +104,10 @@ __all__ = [
     "psi_band",
     "score_bins",
     "score_drift",
+    "CALIBRATION_MEASURES",
+    "CalibrationMeasureDrift",
+    "CalibrationDrift",
+    "calibration_drift",
 ]
 
 #: PSI below this is "stable" (common practice, no source).
@@ -607,3 +621,279 @@ def score_drift(reference: ScoreBins, new: ScoreBins, *, floor: float = DEFAULT_
                       ks_events=ks_ev, ks_non_events=ks_ne, prevalence=prev,
                       n_bins=reference.n_bins, below=float(new.below), above=float(new.above),
                       statements=tuple(st))
+
+
+# --------------------------------------------------------------------------- calibration drift
+
+#: The calibration measures compared, their ideal values and labels.
+CALIBRATION_MEASURES = {
+    "intercept": (0.0, "calibration intercept (in the large)"),
+    "slope": (1.0, "calibration slope"),
+    "oe_ratio": (1.0, "observed / expected"),
+}
+CALIBRATION_DRIFT_METHOD = (
+    "New data against the ideal: the new interval excludes the ideal -> fails; contains it with "
+    "at least {min_events} events -> holds; else unclear. Change since approval: intercept and "
+    "slope by the Wald interval of the difference of two independent estimates, "
+    "d -/+ z sqrt(se_new^2 + se_ref^2); O/E by the ratio (O/E)_new / (O/E)_ref, which is the "
+    "ratio of the event rates times the ratio of mean scores (fixed), with the Katz log interval "
+    "for a ratio of two independent proportions (Katz et al., Biometrics 1978).")
+
+
+def _plain(obj):
+    """A calibration report / one set of numbers as a plain dict (JSON form accepted)."""
+    if obj is None:
+        return None
+    if hasattr(obj, "to_dict"):
+        obj = obj.to_dict()
+    if not isinstance(obj, dict):
+        raise TypeError(f"expected a calibration report or its dict, got {type(obj).__name__}")
+    return obj
+
+
+def _f(d, key):
+    v = None if d is None else d.get(key)
+    return math.nan if v is None else float(v)  # JSON null is NaN; "inf" / "-inf" parse
+
+
+def _overall(d):
+    """``(available, reason, overall dict, groups list, min_events, confidence)`` of a report dict
+    (a :class:`core.calibration.CalibrationReport`, its ``to_dict`` or a record's section) or of
+    one set's numbers (a :class:`core.calibration.Calibration` or its dict)."""
+    if "overall" in d or "available" in d:
+        avail = d.get("overall") is not None and bool(d.get("available", True))
+        return (avail, d.get("reason"), d.get("overall"), list(d.get("groups") or []),
+                int(d.get("min_events") or 100), d.get("confidence"))
+    if "fit" in d:
+        return True, None, d, [], 100, (d.get("fit") or {}).get("confidence")
+    raise InputError("calibration", "holds neither a calibration report nor one set's "
+                                    "calibration numbers")
+
+
+@dataclass(frozen=True)
+class CalibrationMeasureDrift:
+    """One calibration measure at approval and now, its verdict on the new data and its change.
+
+    ``verdict`` judges the new data against ``ideal`` (0 for the intercept, 1
+    for slope and O/E); ``change`` is ``new - reference`` (``change_kind``
+    ``"difference"``) or ``new / reference`` (``"ratio"``, for O/E) with its
+    interval; ``changed`` is True when that interval excludes 0 (or 1).
+    """
+
+    name: str
+    label: str
+    ideal: float
+    reference: float
+    reference_low: float
+    reference_high: float
+    new: float
+    new_low: float
+    new_high: float
+    change: float
+    change_low: float
+    change_high: float
+    change_kind: str
+    changed: bool
+    verdict: str
+
+    @property
+    def title(self) -> str:
+        return self.label[0].upper() + self.label[1:]
+
+    def statement(self) -> str:
+        if not np.isfinite(self.new):
+            return f"{self.title}: cannot be computed on the new data."
+        fmt = "+.2f" if self.name == "intercept" else ".2f"
+        s = (f"{self.title} {self.new:{fmt}} now ({self.new_low:{fmt}} to {self.new_high:{fmt}}), "
+             f"{self.reference:{fmt}} at approval")
+        if np.isfinite(self.change):
+            word = "changed" if self.changed else "no clear change"
+            if self.change_kind == "ratio":
+                s += (f"; ratio now / then {self.change:.2f} ({self.change_low:.2f} to "
+                      f"{self.change_high:.2f}): {word}")
+            else:
+                s += (f"; difference {self.change:+.2f} ({self.change_low:+.2f} to "
+                      f"{self.change_high:+.2f}): {word}")
+        return s + f" -- {self.verdict}."
+
+    def to_dict(self) -> dict:
+        d = {f.name: getattr(self, f.name) for f in fields(self)}
+        d["statement"] = self.statement()
+        return _json(d)
+
+
+@dataclass(frozen=True)
+class CalibrationDrift:
+    """Calibration on the new data against the record's (see :func:`calibration_drift`).
+
+    ``verdict``: ``"fails"`` when any measure's new interval excludes its
+    ideal, ``"holds"`` when every measure holds, ``"unclear"`` otherwise,
+    ``"not applicable"`` when either side has no calibration (scores not
+    probabilities). ``drifted``: any measure changed since approval.
+    ``groups`` holds the same for every group present in both;
+    ``new_groups`` / ``vanished_groups`` name the others.
+    """
+
+    available: bool
+    reason: str | None
+    where: str
+    measures: tuple[CalibrationMeasureDrift, ...]
+    verdict: str
+    drifted: bool
+    events_reference: float
+    events_new: float
+    confidence: float
+    method: str
+    statement: str
+    groups: tuple[CalibrationDrift, ...] = ()
+    new_groups: tuple[str, ...] = ()
+    vanished_groups: tuple[str, ...] = ()
+
+    def measure(self, name: str) -> CalibrationMeasureDrift:
+        for m in self.measures:
+            if m.name == name:
+                return m
+        raise KeyError(name)
+
+    def to_dict(self) -> dict:
+        d = {f.name: getattr(self, f.name) for f in fields(self)
+             if f.name not in ("measures", "groups")}
+        d["measures"] = [m.to_dict() for m in self.measures]
+        d["groups"] = [g.to_dict() for g in self.groups]
+        return _json(d)
+
+
+def _katz_ratio(x1, n1, x0, n0, z):
+    """Katz log interval for (x1/n1) / (x0/n0); NaN with a zero count."""
+    if not (x1 > 0 and x0 > 0 and n1 > 0 and n0 > 0):
+        return math.nan, math.nan, math.nan
+    r = (x1 / n1) / (x0 / n0)
+    se = math.sqrt(max(1.0 / x1 - 1.0 / n1 + 1.0 / x0 - 1.0 / n0, 0.0))
+    return r, r * math.exp(-z * se), r * math.exp(z * se)
+
+
+def _measure(name, ref, new, z, min_events):
+    ideal, label = CALIBRATION_MEASURES[name]
+    rf, nf = ref.get("fit") or {}, new.get("fit") or {}
+    if name == "oe_ratio":
+        r, rl, rh = _f(ref, "oe_ratio"), _f(ref, "oe_low"), _f(ref, "oe_high")
+        v, lo, hi = _f(new, "oe_ratio"), _f(new, "oe_low"), _f(new, "oe_high")
+        x1, n1, m1 = _f(new, "events"), _f(new, "cases"), _f(new, "mean_score")
+        x0, n0, m0 = _f(ref, "events"), _f(ref, "cases"), _f(ref, "mean_score")
+        rr, rrl, rrh = _katz_ratio(x1, n1, x0, n0, z)
+        k = m0 / m1 if m1 > 0 else math.nan
+        ch, cl, chh, kind, base = rr * k, rrl * k, rrh * k, "ratio", 1.0
+    else:
+        r, rl, rh = _f(rf, name), _f(rf, f"{name}_low"), _f(rf, f"{name}_high")
+        v, lo, hi = _f(nf, name), _f(nf, f"{name}_low"), _f(nf, f"{name}_high")
+        se = math.hypot(_f(nf, f"{name}_se"), _f(rf, f"{name}_se"))
+        ch = v - r
+        cl, chh, kind, base = ch - z * se, ch + z * se, "difference", 0.0
+    events = _f(new, "events")
+    converged = bool(nf.get("converged", True)) if name != "oe_ratio" else True
+    if not (np.isfinite(lo) and np.isfinite(hi)) or not converged:
+        verdict = "unclear"
+    elif lo > ideal or hi < ideal:
+        verdict = "fails"
+    elif events >= min_events:
+        verdict = "holds"
+    else:
+        verdict = "unclear"
+    changed = bool(np.isfinite(cl) and np.isfinite(chh) and (cl > base or chh < base))
+    return CalibrationMeasureDrift(name=name, label=label, ideal=ideal, reference=r,
+                                   reference_low=rl, reference_high=rh, new=v, new_low=lo,
+                                   new_high=hi, change=ch, change_low=cl, change_high=chh,
+                                   change_kind=kind, changed=changed, verdict=verdict)
+
+
+def _drift_one(ref, new, where, conf, min_events):
+    z = _iv.normal_quantile(conf)
+    ms = tuple(_measure(n, ref, new, z, min_events) for n in CALIBRATION_MEASURES)
+    words = [m.verdict for m in ms]
+    verdict = "fails" if "fails" in words else ("holds" if all(w == "holds" for w in words)
+                                                else "unclear")
+    drifted = any(m.changed for m in ms)
+    ev_new = _f(new, "events")
+    head = {"fails": "miscalibrated on the new data",
+            "holds": "calibrated on the new data",
+            "unclear": "calibration on the new data cannot be judged"}[verdict]
+    st = f"Calibration, {where}: {head}"
+    if verdict == "unclear" and ev_new < min_events:
+        st += f" ({ev_new:,.0f} events; at least {min_events} are needed to call scores calibrated)"
+    oe = ms[2]
+    if verdict == "fails" and oe.verdict == "fails":
+        st += (" -- more events than the scores predict" if oe.new_low > 1.0 else
+               " -- fewer events than the scores predict")
+    st += ("; it has changed since approval" if drifted else "; no clear change since approval")
+    st += ". " + " ".join(m.statement() for m in ms)
+    if verdict == "fails":
+        st += (" The scores' distribution can stay put while the outcomes move; a low PSI does "
+               "not clear calibration.")
+    return ms, verdict, drifted, st
+
+
+def calibration_drift(reference_summary, new_report, *, confidence: float | None = None,
+                      min_events: int | None = None) -> CalibrationDrift:
+    """Calibration intercept, slope and O/E on the new data against the record's, with verdicts.
+
+    Parameters
+    ----------
+    reference_summary
+        The calibration at approval: a :class:`core.calibration.CalibrationReport`,
+        its ``to_dict()`` (as the decision record stores it, JSON ``null`` for
+        undefined values) or one :class:`core.calibration.Calibration`.
+    new_report
+        :func:`core.calibration.calibration_report` of the new (mature) data,
+        in any of the same forms.
+    confidence, min_events
+        Default: the new report's (its intervals are used as they are).
+
+    For each measure the new data are judged against the ideal (intercept 0,
+    slope 1, O/E 1) and the change since approval gets an interval (see
+    :data:`CALIBRATION_DRIFT_METHOD`); groups present in both reports get the
+    same. Scores whose distribution has not moved (PSI low) while the
+    outcomes have (O/E far from 1) fail here.
+
+    Reference: logistic recalibration (Cox, Biometrika 1958) as computed by
+    :mod:`core.calibration`; Wald intervals for a difference of independent
+    estimates; Katz, Baptista, Azen & Pike, Biometrics 1978 for the ratio
+    (statsmodels ``confint_proportions_2indep(compare="ratio", method="log")``).
+    """
+    ref_d, new_d = _plain(reference_summary), _plain(new_report)
+    r_av, r_reason, r_all, r_groups, _, _ = _overall(ref_d)
+    n_av, n_reason, n_all, n_groups, n_min, n_conf = _overall(new_d)
+    conf = float(confidence if confidence is not None else (n_conf if n_conf is not None else 0.95))
+    if not (0.0 < conf < 1.0):
+        raise InputError("confidence", f"must lie strictly between 0 and 1, got {confidence!r}")
+    me = int(min_events if min_events is not None else n_min)
+    method = CALIBRATION_DRIFT_METHOD.format(min_events=me)
+    if not (r_av and n_av):
+        reason = (f"at approval: {r_reason}" if not r_av else f"on the new data: {n_reason}")
+        return CalibrationDrift(available=False, reason=reason, where="all cases", measures=(),
+                                verdict="not applicable", drifted=False,
+                                events_reference=_f(r_all, "events"),
+                                events_new=_f(n_all, "events"), confidence=conf, method=method,
+                                statement=f"Calibration drift is not checked ({reason}).")
+    ms, verdict, drifted, st = _drift_one(r_all, n_all, "all cases", conf, me)
+
+    def key(g):
+        return (str(g.get("column")), str(g.get("group")))
+
+    ref_by = {key(g): g for g in r_groups}
+    new_by = {key(g): g for g in n_groups}
+    groups = []
+    for k in new_by:
+        if k in ref_by:
+            gms, gv, gd, gst = _drift_one(ref_by[k], new_by[k], f"{k[0]} = {k[1]}", conf, me)
+            groups.append(CalibrationDrift(
+                available=True, reason=None, where=f"{k[0]} = {k[1]}", measures=gms, verdict=gv,
+                drifted=gd, events_reference=_f(ref_by[k], "events"),
+                events_new=_f(new_by[k], "events"), confidence=conf, method=method,
+                statement=gst))
+    new_only = tuple(f"{c} = {g}" for c, g in new_by if (c, g) not in ref_by)
+    gone = tuple(f"{c} = {g}" for c, g in ref_by if (c, g) not in new_by)
+    return CalibrationDrift(available=True, reason=None, where="all cases", measures=ms,
+                            verdict=verdict, drifted=drifted,
+                            events_reference=_f(r_all, "events"), events_new=_f(n_all, "events"),
+                            confidence=conf, method=method, statement=st, groups=tuple(groups),
+                            new_groups=new_only, vanished_groups=gone)

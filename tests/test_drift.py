@@ -1,4 +1,4 @@
-"""Score drift: PSI from stored bins, the binned KS statistic and its bound, prevalence change."""
+"""Score drift: PSI from stored bins, binned KS and its bound, prevalence change, calibration."""
 
 import json
 import math
@@ -6,13 +6,16 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
+import statsmodels.api as sm
+from scipy.special import expit, logit
 from scipy.stats import chi2, ks_2samp
 from statsmodels.stats.proportion import confint_proportions_2indep
 
+from core.calibration import calibration_report
 from core.dataset import Dataset
 from core.drift import (DEFAULT_PSI_FLOOR, PSI_SHIFTED, PSI_STABLE, ScoreBins, bin_dataset,
-                        binned_ks, population_stability_index, prevalence_change, psi_band,
-                        score_bins, score_drift)
+                        binned_ks, calibration_drift, population_stability_index,
+                        prevalence_change, psi_band, score_bins, score_drift)
 from core.errors import InputError
 
 
@@ -293,3 +296,98 @@ def test_bad_bins_are_input_errors():
     with pytest.raises(InputError, match="reference's edges"):
         score_drift(a, b)
     assert isinstance(a, ScoreBins)
+
+
+# ------------------------------------------------------------------ calibration drift
+
+def _probability_sample(n, seed, outcome_shift=0.0, sites=("Ashgrove", "Wendlecombe")):
+    """Scores p and outcomes from expit(shift + logit(p)) (common practice; invented data)."""
+    rng = np.random.default_rng(seed)
+    p = expit(rng.normal(-3.0, 1.0, n))
+    y = rng.random(n) < expit(outcome_shift + logit(p))
+    return Dataset.from_arrays(y, p, groups={"site": rng.choice(list(sites), n)})
+
+
+def _stored(report):
+    """The record's form: JSON with undefined values as null."""
+    return json.loads(json.dumps(report.to_dict(), allow_nan=False))
+
+
+def test_outcomes_shifted_with_scores_unchanged_fail_calibration_while_psi_stays_low():
+    ref = _probability_sample(40000, 1)
+    new = _probability_sample(30000, 2, outcome_shift=0.6)  # same scores, more events
+    edges = _quantile_edges(ref.y_score, 20)
+    drift = score_drift(bin_dataset(ref, edges), bin_dataset(new, edges))
+    assert drift.psi.band == "stable" and not drift.psi.beyond_noise
+    assert drift.psi_non_events.band == "stable"
+    cal = calibration_drift(_stored(calibration_report(ref)), calibration_report(new))
+    assert cal.verdict == "fails" and cal.drifted
+    oe = cal.measure("oe_ratio")
+    assert oe.verdict == "fails" and oe.new_low > 1.0 and oe.changed and oe.change_low > 1.0
+    assert cal.measure("intercept").verdict == "fails"
+    assert cal.measure("slope").verdict == "holds" and not cal.measure("slope").changed
+    assert "more events than the scores predict" in cal.statement
+    assert "a low PSI does not clear calibration" in cal.statement
+    assert {g.where for g in cal.groups} == {"site = Ashgrove", "site = Wendlecombe"}
+    assert all(g.verdict == "fails" for g in cal.groups)
+    json.dumps(cal.to_dict(), allow_nan=False)
+
+
+def test_same_population_keeps_calibration():
+    ref = _probability_sample(40000, 3)
+    new = _probability_sample(30000, 4)
+    cal = calibration_drift(calibration_report(ref), calibration_report(new))
+    assert cal.verdict == "holds" and not cal.drifted
+    assert all(m.verdict == "holds" for m in cal.measures)
+
+
+def test_calibration_change_intervals_against_statsmodels():
+    # Reference: statsmodels GLM (Binomial) of y on logit(p) -- with logit(p) as an offset for the
+    # intercept in the large -- on each sample; the Wald interval of the difference uses their
+    # standard errors. O/E ratio: statsmodels confint_proportions_2indep(compare="ratio",
+    # method="log") (Katz 1978) times the ratio of mean scores.
+    ref = _probability_sample(20000, 5)
+    new = _probability_sample(15000, 6, outcome_shift=0.3)
+    cal = calibration_drift(calibration_report(ref, groups=False),
+                            calibration_report(new, groups=False))
+    z = 1.959963984540054
+
+    def fits(ds):
+        y = ds.y_true.astype(float)
+        L = logit(ds.y_score)
+        off = sm.GLM(y, np.ones((y.size, 1)), family=sm.families.Binomial(), offset=L).fit()
+        full = sm.GLM(y, sm.add_constant(L), family=sm.families.Binomial()).fit()
+        return off.params[0], off.bse[0], full.params[1], full.bse[1]
+
+    a0, sa0, b0, sb0 = fits(ref)
+    a1, sa1, b1, sb1 = fits(new)
+    m = cal.measure("intercept")
+    assert m.change == pytest.approx(a1 - a0, abs=1e-6)
+    assert m.change_low == pytest.approx(a1 - a0 - z * math.hypot(sa0, sa1), abs=1e-5)
+    m = cal.measure("slope")
+    assert m.change_high == pytest.approx(b1 - b0 + z * math.hypot(sb0, sb1), abs=1e-5)
+    x1, n1 = ref.y_true.sum(), ref.n_rows
+    x2, n2 = new.y_true.sum(), new.n_rows
+    lo, hi = confint_proportions_2indep(x2, n2, x1, n1, compare="ratio", method="log")
+    k = ref.y_score.mean() / new.y_score.mean()
+    m = cal.measure("oe_ratio")
+    assert m.change_low == pytest.approx(lo * k, rel=1e-10)
+    assert m.change_high == pytest.approx(hi * k, rel=1e-10)
+    oe_ratio = (new.y_true.sum() / new.y_score.sum()) / (ref.y_true.sum() / ref.y_score.sum())
+    assert m.change == pytest.approx(oe_ratio, rel=1e-10)
+
+
+def test_calibration_drift_few_events_groups_and_non_probabilities():
+    ref = _probability_sample(20000, 7, sites=("Ashgrove", "Wendlecombe"))
+    new = _probability_sample(800, 8, sites=("Ashgrove", "Brindlemoor"))
+    cal = calibration_drift(calibration_report(ref), calibration_report(new))
+    # same population, few events: nothing excludes the ideal, too few events to call it held
+    assert cal.events_new < 100 and cal.verdict == "unclear"
+    assert "at least 100" in cal.statement
+    assert cal.new_groups == ("site = Brindlemoor",)
+    assert cal.vanished_groups == ("site = Wendlecombe",)
+    assert [g.where for g in cal.groups] == ["site = Ashgrove"]
+    rng = np.random.default_rng(0)
+    raw = Dataset.from_arrays(rng.random(500) < 0.1, rng.normal(0, 3, 500))
+    na = calibration_drift(calibration_report(ref), calibration_report(raw))
+    assert na.verdict == "not applicable" and not na.available and "new data" in na.reason
