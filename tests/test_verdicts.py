@@ -249,8 +249,13 @@ def test_never_a_verdict_from_the_point_value_alone(tp, fn, fp, tn, lim, name, c
         assert (v.upper < lim) if lower_rule else (v.lower > lim)
     if math.isnan(v.value):
         assert v.verdict == "unclear" and "undefined" in v.reason
+    elif v.verdict == "unclear" and lower_rule:
+        # neither bound settles it: the upper bound reaches the limit, the lower (or the point) not
+        assert v.upper >= lim * (1 - 1e-12)
+        assert v.lower < lim * (1 - 1e-12) or v.value < lim * (1 - 1e-12)
     elif v.verdict == "unclear":
-        assert v.lower <= lim * (1 + 1e-12) or v.upper >= lim * (1 - 1e-12)
+        assert v.lower <= lim * (1 + 1e-12)
+        assert v.upper > lim * (1 + 1e-12) or v.value > lim * (1 + 1e-12)
 
 
 def test_undefined_metrics_and_bad_input():
