@@ -200,3 +200,34 @@ def test_evidence_page_shows_core_intervals(demo):
     assert row["Bootstrap interval"] == f"{fmt.pct(boot.low)} to {fmt.pct(boot.high)}"
     same = next(m for m in at.main.metric if m.label == "Same point")
     assert same.value == fmt.pct(ev.stability.to_dict()["share_same_point"])
+
+
+def test_count_table_upload_gives_the_row_level_curve():
+    rng = np.random.default_rng(9)
+    n = 20_000
+    y = rng.random(n) < 0.03
+    s = np.round(rng.normal(y * 1.0, 1.0), 2)
+    df = pd.DataFrame({"s": s, "y": y.astype(int)})
+    tab = df.groupby("s").agg(ev=("y", "sum"), tot=("y", "size")).reset_index()
+    tab["nonev"] = tab["tot"] - tab["ev"]
+    buf = io.StringIO()
+    tab[["s", "ev", "nonev"]].sample(frac=1.0, random_state=2).to_csv(buf, index=False)
+    at = fresh()
+    _upload(at, "counts.csv", buf.getvalue().encode())
+    at.radio(key="map_kind").set_value("counts").run()
+    at.selectbox(key="map_score").set_value("s").run()
+    at.selectbox(key="map_events").set_value("ev").run()
+    at.selectbox(key="map_non_events").set_value("nonev").run()
+    at.button(key="map_apply").click().run()
+    assert not at.exception and not at.error, [e.value for e in at.error]
+    ds = at.session_state["fulcrum_dataset"]
+    assert ds.kind == "counts"
+    from core import sweep
+
+    rows = sweep(y, s)
+    np.testing.assert_array_equal(ds.curve().tp, rows.tp)
+    np.testing.assert_array_equal(ds.curve().fp, rows.fp)
+    at.switch_page("views/tradeoffs.py").run()
+    assert not at.exception
+    at.switch_page("views/decide.py").run()
+    assert not at.exception
