@@ -273,14 +273,20 @@ def _groups_summary(record) -> list[str]:
     return out
 
 
+_INDEPENDENCE_WORDS = {
+    "temporal": "temporal: a later period than the training data",
+    "external": "external: another site or population than the training data",
+    "same period": "same period as the training data (not independent)",
+}
+
+
 def _signoff_state(record) -> str:
     s = record["memo"]["sign_off"]
     if not s.get("decision"):
         return "Sign-off: NOT YET SIGNED OFF."
     who = ", ".join(x for x in (s.get("name"), s.get("role")) if x) or "name not stated"
     when = s.get("date") or "date not stated"
-    cond = f" Conditions: {s['conditions']}" if s.get("conditions") else ""
-    return f"Sign-off: {s['decision'].upper()} by {who} on {when}.{cond}"
+    return f"Sign-off: {s['decision'].upper()} by {who} on {when}."
 
 
 def _regulatory(record) -> str:
@@ -326,7 +332,7 @@ def memo_blocks(record: dict) -> list[Block]:
                  if record.get("threshold_entered") is not None else ".")))
     for line in _per_1000_text(record):
         add(Block("p", line))
-    about = [(label, memo.get(key)) for key, label in (
+    about = [(label, _INDEPENDENCE_WORDS.get(memo.get(key), memo.get(key))) for key, label in (
         ("intended_use", "Intended use"), ("outcome_definition", "Outcome"),
         ("population", "Population"), ("validation_independence", "Validation data"))
         if memo.get(key)]
@@ -357,6 +363,8 @@ def memo_blocks(record: dict) -> list[Block]:
         add(Block("caution", record["cautions"]["few_events"]))
     add(Block("caution", _regulatory(record)))
     add(Block("strong", _signoff_state(record)))
+    if record["memo"]["sign_off"].get("decision") and record["memo"]["sign_off"].get("conditions"):
+        add(Block("p", f"Conditions: {record['memo']['sign_off']['conditions']}"))
     add(Block("pagebreak"))
 
     # ---------------------------------------------------------------- data

@@ -46,7 +46,8 @@ _registered = False
 
 _PAGE_W, _PAGE_H = A4
 _MARGIN = 16 * mm
-_WIDTH = _PAGE_W - 2 * _MARGIN
+_FRAME_PADDING = 6  # platypus frames pad 6 pt on each side
+_WIDTH = _PAGE_W - 2 * _MARGIN - 2 * _FRAME_PADDING
 
 _INK = colors.HexColor("#1b1b1b")
 _ACCENT = colors.HexColor("#1f4e79")

@@ -48,8 +48,16 @@ def pdf_bytes(record):
 
 @pytest.fixture(scope="module")
 def pdf_text(pdf_bytes):
+    """The PDF's text without the page footers (so paragraphs run on across pages)."""
     reader = PdfReader(io.BytesIO(pdf_bytes))
-    return "\n".join(p.extract_text() for p in reader.pages)
+    pages = []
+    for i, p in enumerate(reader.pages, start=1):
+        lines = p.extract_text().splitlines()
+        footer = [ln for ln in lines if ln.strip() == cautions.SHORT
+                  or ln.strip().startswith("Fulcrum threshold memo · record")]
+        assert len(footer) == 2 and footer[1].strip().endswith(f"page {i}"), footer
+        pages.append("\n".join(ln for ln in lines if ln not in footer))
+    return "\n".join(pages)
 
 
 def _flat(text: str) -> str:
