@@ -21,6 +21,8 @@ class ClassHistogram:
     edges: np.ndarray
     events: np.ndarray
     non_events: np.ndarray
+    below: float = 0.0   # weight of scores under the first edge, counted in the first bin
+    above: float = 0.0   # weight of scores over the last edge, counted in the last bin
 
     @property
     def centers(self) -> np.ndarray:
@@ -36,7 +38,9 @@ def class_histogram(dataset, bins: int = 60, edges=None) -> ClassHistogram:
 
     ``edges`` fixes the bins (a drift check needs the reference's bins);
     otherwise ``bins`` equal-width bins span the score range. Bins are closed
-    on the left except the last, as ``numpy.histogram``.
+    on the left except the last, as ``numpy.histogram``. With fixed edges,
+    scores outside them count in the outer bins and their weight is reported
+    as ``below`` / ``above``: nothing is dropped.
     """
     s = dataset.y_score
     if dataset.kind == "counts":
@@ -51,6 +55,11 @@ def class_histogram(dataset, bins: int = 60, edges=None) -> ClassHistogram:
             hi = lo + 1.0
         edges = np.linspace(lo, hi, int(bins) + 1)
     edges = np.asarray(edges, dtype=np.float64)
-    ev, _ = np.histogram(s, bins=edges, weights=w_pos)
-    ne, _ = np.histogram(s, bins=edges, weights=w_neg)
-    return ClassHistogram(edges=edges, events=ev, non_events=ne)
+    w_all = w_pos + w_neg
+    below = float(w_all[s < edges[0]].sum())
+    above = float(w_all[s > edges[-1]].sum())
+    # scores outside fixed edges are never dropped: they count in the outer bins (and are reported)
+    clipped = np.clip(s, edges[0], edges[-1]) if (below or above) else s
+    ev, _ = np.histogram(clipped, bins=edges, weights=w_pos)
+    ne, _ = np.histogram(clipped, bins=edges, weights=w_neg)
+    return ClassHistogram(edges=edges, events=ev, non_events=ne, below=below, above=above)
