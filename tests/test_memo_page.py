@@ -60,9 +60,20 @@ def test_memo_page_record_equals_the_cli_record(cli_record):
     tiles = {m.label: m.value for m in at.main.metric}
     assert tiles["Recall"] == "82.3 %"
     labels = [b.label for b in at.get("download_button")]
-    for want in ("Memo (PDF)", "Memo (Markdown)", "Decision record (JSON)", "Test vectors (CSV)",
+    for want in ("Memo (Markdown)", "Decision record (JSON)", "Test vectors (CSV)",
                  "Save the memo fields (TOML)"):
         assert want in labels
+    # the PDF is built on request, for the record on the page
+    assert "Memo (PDF)" not in labels
+    at.button(key="memo_build_pdf").click().run()
+    assert not at.exception, at.exception
+    sha, pdf = at.session_state["fulcrum_memo_pdf"]
+    assert sha == app_record["integrity"]["sha256"] and pdf[:5] == b"%PDF-"
+    assert "Memo (PDF)" in [b.label for b in at.get("download_button")]
+    # editing a field makes a new record; the old PDF is not offered for it
+    at.text_input(key="memo_f_author").input("Someone Else (invented)").run()
+    assert at.session_state[RECORD]["memo"]["author"] == "Someone Else (invented)"
+    assert "Memo (PDF)" not in [b.label for b in at.get("download_button")]
 
 
 def test_loading_a_record_restores_mapping_policy_and_point(cli_record):

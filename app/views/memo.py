@@ -44,6 +44,7 @@ SHADOW = "fulcrum_memo_widgets"          # widget values kept across page switch
 RECORD = "fulcrum_memo_record"           # the last record built on this page (JSON-safe dict)
 CREATED = "fulcrum_memo_created"         # content key -> created_utc, so a rerun keeps the time
 MESSAGES = "fulcrum_memo_messages"       # what the last record load said
+PDF = "fulcrum_memo_pdf"                 # (record sha256, PDF bytes) of the last PDF built
 RECOMMENDED, CURRENT = "recommended", "current"
 _LONG = {"outcome_definition", "population", "exclusions", "intended_use", "out_of_scope_use",
          "limitations", "regulatory_status", "rationale", "monitoring.triggers",
@@ -221,11 +222,13 @@ def _analysis(fingerprint: str, policy_text: str, threshold, origin, design, see
                    n_replicates=reps, calibrated=calibrated, production_decimals=decimals)
 
 
-@st.cache_resource(max_entries=8, show_spinner=False)
-def _pdf(record_sha: str, _record):
+def _build_pdf(sha: str) -> None:
+    """Build the PDF of the record on the page (kept for that record only)."""
     from core.memo_pdf import memo_pdf
 
-    return memo_pdf(_record)
+    record = st.session_state.get(RECORD)
+    if record is not None and record["integrity"]["sha256"] == sha:
+        st.session_state[PDF] = (sha, memo_pdf(record))
 
 
 def _created(content: dict) -> str:
@@ -400,8 +403,13 @@ def render() -> None:
     sha = record["integrity"]["sha256"]
     stem = "threshold_memo"
     d1, d2, d3, d4 = st.columns(4)
-    d1.download_button("Memo (PDF)", lambda: _pdf(sha, record), file_name=f"{stem}.pdf",
-                       mime="application/pdf", key=K + "dl_pdf", type="primary")
+    built = ss.get(PDF)
+    if built is not None and built[0] == sha:
+        d1.download_button("Memo (PDF)", built[1], file_name=f"{stem}.pdf", mime="application/pdf",
+                           key=K + "dl_pdf", type="primary")
+    else:
+        d1.button("Build the PDF memo", key=K + "build_pdf", type="primary", on_click=_build_pdf,
+                  args=(sha,), help="Draws the figures and lays out the memo (a second or so).")
     d2.download_button("Memo (Markdown)", memo_markdown(record), file_name=f"{stem}.md",
                        mime="text/markdown", key=K + "dl_md")
     d3.download_button("Decision record (JSON)", dumps_record(record), file_name="decision_record.json",
