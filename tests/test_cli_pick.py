@@ -210,3 +210,43 @@ def test_help_documents_every_option():
     assert res.returncode == 0 and "--memo-fields" in res.stdout
     res = run(["app", "--help"])
     assert res.returncode == 0 and "--port" in res.stdout
+
+
+def test_excel_sheet_weights_lower_is_riskier_and_dropped_rows(tmp_path):
+    """Invented scores in the second sheet of a workbook; common practice, no source."""
+    import numpy as np
+
+    from core.dataset import Mapping
+    from core.policy import Policy
+
+    rng = np.random.default_rng(1)
+    n = 3000
+    y = rng.random(n) < 0.05
+    df = pd.DataFrame({"score": np.round(-(rng.normal(size=n) + 1.5 * y), 3),
+                       "outcome": np.where(y, "bad", "good"),
+                       "w": rng.uniform(0.5, 2, n).round(2), "seg": rng.choice(["a", "b"], n)})
+    df.loc[[3, 10], "score"] = np.nan
+    path = tmp_path / "scores.xlsx"
+    with pd.ExcelWriter(path) as xw:
+        pd.DataFrame({"note": ["invented"]}).to_excel(xw, sheet_name="notes", index=False)
+        df.to_excel(xw, sheet_name="scores", index=False)
+    args = ["pick", str(path), "--sheet", "scores", "--score", "score", "--label", "outcome",
+            "--positive", "bad", "--weight", "w", "--weight-kind", "sampling", "--group", "seg",
+            "--lower-is-riskier", "--production-decimals", "3", "--replicates", REPS]
+    # without --drop-missing-scores the missing scores are named, nothing is dropped silently
+    res = run(args)
+    line = _one_line_error(res)
+    assert "missing" in line and "rows 4, 11" in line
+    assert main([*args, "--drop-missing-scores", "--record", str(tmp_path / "r.json")]) == 0
+    rec = load_record(tmp_path / "r.json")
+    assert rec["data"]["dropped_rows"] == 2 and rec["data"]["sheet"] == "scores"
+    assert rec["data"]["weight_kind"] == "sampling" and rec["higher_is_riskier"] is False
+    assert rec["test_vectors"]["rule"].startswith("flag a case when its score <=")
+    assert rec["threshold_interval"]["closed"] == "low"
+    m = Mapping(score="score", label="outcome", positive_label="bad", weight="w",
+                weight_kind="sampling", groups=("seg",), higher_is_riskier=False,
+                drop_missing_scores=True)
+    ds = load_dataset(path, m, sheet="scores")
+    same = decide(ds, Policy.from_dict({"objective": {"kind": "max_youden"}}),
+                  n_replicates=int(REPS), production_decimals=3, sheet="scores")
+    assert without_timestamps(rec) == without_timestamps(same)
