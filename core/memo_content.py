@@ -144,6 +144,12 @@ def _pct_for(x) -> str:
     return fmt_pct(x, 2 if abs(float(x)) < 0.1 else 1)
 
 
+def _c(record) -> str:
+    """The record's confidence level as written in headers, e.g. "95 %"."""
+    conf = (record.get("analysis") or {}).get("confidence") or 0.95
+    return f"{100 * conf:g} %"
+
+
 def _sentence(s: str) -> str:
     s = str(s).strip()
     if not s:
@@ -217,7 +223,7 @@ def _per_1000_text(record) -> list[str]:
         if cost.get("per_period") is not None:
             txt += f", {fmt_num(cost['per_period'], 1)} {unit} per {cost['period']}"
         if cost.get("ci_low") is not None:
-            txt += (f" (per case {fmt_num(cost['per_case'], 4)}, 95 % bootstrap interval "
+            txt += (f" (per case {fmt_num(cost['per_case'], 4)}, {_c(record)} bootstrap interval "
                     f"{fmt_num(cost['ci_low'], 4)} to {fmt_num(cost['ci_high'], 4)})")
         out.append(txt + ".")
     return out
@@ -233,7 +239,8 @@ def _key_intervals(record) -> tuple[tuple, list[tuple]]:
     m = record["metrics"]
     opt = m["optimism"]
     dep = m["deployment"]
-    header = ("Quantity (at π)", "Apparent, with 95 % interval", "Cross-fitted", "Optimism-corrected")
+    header = ("Quantity (at π)", f"Apparent, with {_c(record)} interval", "Cross-fitted",
+              "Optimism-corrected")
     rows = []
     for q, label in _KEY_QUANTITIES:
         if q == "cost":
@@ -242,7 +249,8 @@ def _key_intervals(record) -> tuple[tuple, list[tuple]]:
                 continue
             w = (lambda v: fmt_num(v, 4))
             app = fmt_ci({"value": c["per_case"], "ci_low": c.get("ci_low"),
-                          "ci_high": c.get("ci_high"), "confidence": 0.95}, w)
+                          "ci_high": c.get("ci_high"),
+                          "confidence": (record.get("analysis") or {}).get("confidence")}, w)
         else:
             w = _pct_for
             app = fmt_ci(dep[q], w)
@@ -447,7 +455,8 @@ def memo_blocks(record: dict) -> list[Block]:
         writer = (lambda v: fmt_num(v, 3)) if name in ("mcc", "youden_j", "nne") else _pct_for
         rows.append((METRIC_LABELS[name][0], writer(m["validation"][name]["value"]), DASH,
                      writer(m["deployment"][name]["value"]), DASH, "point value"))
-    add(Block("table", header=("Metric", "Validation", "95 % interval", "Deployment", "95 % interval",
+    add(Block("table", header=("Metric", "Validation", f"{_c(record)} interval", "Deployment",
+                               f"{_c(record)} interval",
                                "Method (deployment)"),
               rows=tuple(rows), widths=(0.17, 0.11, 0.17, 0.11, 0.17, 0.27)))
     boot_rows = []
@@ -464,7 +473,7 @@ def memo_blocks(record: dict) -> list[Block]:
                           if isinstance(e, dict) and e.get("bootstrap")})
         add(Block("p", "Bootstrap intervals" + (f" ({'; '.join(methods)})" if methods else "")
                   + ":"))
-        add(Block("table", header=("Quantity", "95 % interval", "Basis"), rows=tuple(boot_rows),
+        add(Block("table", header=("Quantity", f"{_c(record)} interval", "Basis"), rows=tuple(boot_rows),
                   widths=(0.3, 0.4, 0.3)))
     add(Block("p", _cautions.ACCURACY_TRAP + f" Here accuracy is "
                    f"{_pct_for(m['validation']['accuracy']['value'])}; flagging none would score "
@@ -562,7 +571,7 @@ def memo_blocks(record: dict) -> list[Block]:
     # ---------------------------------------------------------------- figures
     add(Block("h1", "9. Figures"))
     add(Block("figure", name="pr_roc", text="ROC and precision–recall curves with the operating "
-                                            "point and 95 % bootstrap bands."))
+                                            f"point and {_c(record)} bootstrap bands."))
     if record["curves"]["points"].get("cost_per_case") is not None:
         add(Block("figure", name="cost", text="Expected cost per case against the threshold, at π."))
 
@@ -642,16 +651,18 @@ def _groups_blocks(record: dict) -> list[Block]:
                          _ci_text(v["precision"]) if "precision" in v else DASH,
                          _pct_for(v["flag_rate"]["estimate"]) if "flag_rate" in v else DASH, vs))
         out.append(Block("p", "At the threshold, each group at its own (validation) prevalence, "
-                              "with 95 % intervals; each group against the rest of the cases."))
-        out.append(Block("table", header=("Group", "Cases", "Events", "Recall (95 % interval)",
-                                          "Precision (95 % interval)", "Flag rate",
+                              f"with {_c(record)} intervals; each group against the rest of the "
+                              "cases."))
+        out.append(Block("table", header=("Group", "Cases", "Events", f"Recall ({_c(record)} interval)",
+                                          f"Precision ({_c(record)} interval)", "Flag rate",
                                           "Recall vs rest (Holm)"),
                          rows=tuple(rows), widths=(0.17, 0.08, 0.07, 0.2, 0.2, 0.09, 0.19)))
         skip = set(fair.get("statements", [])) if fair.get("status") == "computed" else set()
         for line in g.get("statements", []):
             if line not in skip:
                 out.append(Block("p", _sentence(line)))
-        out.append(Block("figure", name="subgroups", text="Recall by subgroup with 95 % intervals."))
+        out.append(Block("figure", name="subgroups",
+                         text=f"Recall by subgroup with {_c(record)} intervals."))
     if fair.get("status") != "computed":
         out.append(Block("p", f"Fairness criterion: not computed ({fair.get('reason')})."))
         return out
@@ -664,7 +675,7 @@ def _groups_blocks(record: dict) -> list[Block]:
                      f"{_pct_for(c['other_value'])} ({c['against']})",
                      f"{_signed(c['gap'], _pct_for)} ({_signed(c['low'], _pct_for)} to "
                      f"{_signed(c['high'], _pct_for)})", c["verdict"], _pct_for(c["largest_gap"])))
-    out.append(Block("table", header=("Group", "Value", "Compared with", "Gap (95 % interval)",
+    out.append(Block("table", header=("Group", "Value", "Compared with", f"Gap ({_c(record)} interval)",
                                       "Verdict", "Largest gap not excluded"),
                      rows=tuple(rows), widths=(0.18, 0.1, 0.18, 0.28, 0.1, 0.16)))
     for line in fair.get("statements", [])[:2]:
@@ -694,7 +705,8 @@ def _calibration_blocks(record: dict) -> list[Block]:
                      fmt_num(c["brier"], 4), fmt_num(c["ece"], 4),
                      f"{fmt_num(c['oe_ratio'], 2)} ({fmt_num(c['oe_low'], 2)} to "
                      f"{fmt_num(c['oe_high'], 2)})"))
-    out.append(Block("table", header=("Cases", "Verdict", "Slope (95 % CI)", "Intercept (95 % CI)",
+    out.append(Block("table", header=("Cases", "Verdict", f"Slope ({_c(record)} CI)",
+                                      f"Intercept ({_c(record)} CI)",
                                       "Brier", "ECE", "Observed / expected"),
                      rows=tuple(rows), widths=(0.16, 0.13, 0.17, 0.17, 0.09, 0.09, 0.19)))
     for line in cal.get("statements", []):
