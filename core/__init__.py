@@ -58,3 +58,15 @@ from core.groups import SubgroupReport, fairness_verdict, subgroup_report  # noq
 
 __all__ += ["CalibrationReport", "calibration_report", "ClusterSummary", "cluster_bootstrap",
             "cluster_summary", "SubgroupReport", "fairness_verdict", "subgroup_report"]
+
+from core.decision import Analysis, analyse, decide  # noqa: E402
+from core.memo_fields import (MemoFieldsError, check_memo_fields, dumps_memo_fields,  # noqa: E402
+                              load_memo_fields, loads_memo_fields, save_memo_fields)
+from core.record import (SCHEMA, RecordError, check_record, dumps_record, fingerprint_note,  # noqa: E402
+                         load_record, loads_record, restore_decision, without_timestamps,
+                         write_record)
+
+__all__ += ["Analysis", "analyse", "decide", "MemoFieldsError", "check_memo_fields", "dumps_memo_fields",
+            "load_memo_fields", "loads_memo_fields", "save_memo_fields", "SCHEMA", "RecordError",
+            "check_record", "dumps_record", "fingerprint_note", "load_record", "loads_record",
+            "restore_decision", "without_timestamps", "write_record"]

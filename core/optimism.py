@@ -62,6 +62,7 @@ def _fold_policy(policy: Policy, data) -> Policy:
 
 def _values(tp, fp, P, N, pi, rp, missed_cost=None):
     """Recall, precision, flag rate at ``pi`` and expected cost per case from counts."""
+    tp, fp, P, N = (np.asarray(v, dtype=np.float64) for v in (tp, fp, P, N))  # 0/0 -> NaN
     with np.errstate(invalid="ignore", divide="ignore"):
         tpr = tp / P
         fpr = fp / N

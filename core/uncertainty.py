@@ -232,7 +232,8 @@ def point_intervals(data, threshold: float, *, method: str = "wilson", confidenc
     def at_prevalence(pi, basis, note):
         dep = dict(n_events=n_ev, n_nonevents=n_ne)
         with np.errstate(invalid="ignore", divide="ignore"):
-            tpr, fpr = tp / P, fp / N
+            # numpy floats, so 0/0 (flag none, flag all) is NaN rather than an exception
+            tpr, fpr = np.float64(tp) / np.float64(P), np.float64(fp) / np.float64(N)
             ppv = pi * tpr / (pi * tpr + (1 - pi) * fpr)
             npv = (1 - pi) * (1 - fpr) / ((1 - pi) * (1 - fpr) + pi * (1 - tpr))
             fr = pi * tpr + (1 - pi) * fpr

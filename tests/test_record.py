@@ -200,10 +200,6 @@ def test_infinite_thresholds_are_strings(record):
     assert loads_record(text)["choice"]["flag_none"]["threshold"] == "inf"
 
 
-@pytest.mark.xfail(strict=True, raises=ZeroDivisionError,
-                   reason="core.uncertainty.point_intervals divides Python floats by zero at the "
-                          "flag-none and flag-all points with a deployment prevalence (owned by the "
-                          "uncertainty module)")
 @pytest.mark.parametrize("end", ["flag none", "flag all"])
 def test_threshold_at_either_end(hospital, hospital_policy, end):
     curve = hospital.curve()
