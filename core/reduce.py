@@ -287,7 +287,7 @@ class _Engine:
         def work():
             try:
                 box["table"] = _arrow(self.con.sql(sql, params=params))
-            except BaseException as exc:  # handed to the calling thread
+            except BaseException as exc:  # noqa: BLE001 - re-raised in the calling thread
                 box["error"] = exc
 
         if stage is None or self.progress is None:
@@ -472,7 +472,9 @@ def _csv_source(p: Path, label: str, engine: _Engine, *, delimiter, decimal, gz:
     _check_duplicates(names)
     if _ROW in names:
         raise InputError(_ROW, "is a column name the reduction uses for itself; rename it")
-    q = lambda v: quote_literal(v, "duckdb")  # noqa: E731
+    def q(v):
+        return quote_literal(v, "duckdb")
+
     cols = "{" + ", ".join(f"{q(n)}: 'VARCHAR'" for n in names) + "}"
     opts = (f"delim = {q(delim)}, quote = '\"', escape = '\"', header = true, "
             f"auto_detect = false, columns = {cols}, skip = {skip}, "
@@ -681,7 +683,7 @@ drop_missing_scores
         The same problems, in the same words, as
         :func:`core.intake.load_dataset` finds row by row; and, with
         ``decimals``, scores too large for an exact grid (|score| * 10^d must
-        stay below 2^52).
+        stay below 10^15).
     """
     t_start = time.perf_counter()
     d = _check_decimals(decimals)
@@ -772,7 +774,7 @@ def _profile_sql(src: _Source, m: Mapping, nums: dict, keep: str, d: int | None)
     lab = src.col(m.label)
     s = nums[m.score]
     row = quote_identifier(_ROW, "duckdb")
-    agg = [f"count(*) AS n_all", f"count(*) FILTER (WHERE {keep}) AS n", f"min({row}) AS first_row",
+    agg = ["count(*) AS n_all", f"count(*) FILTER (WHERE {keep}) AS n", f"min({row}) AS first_row",
            f"count(*) FILTER (WHERE {s.not_number}) AS s_not_number",
            f"count(*) FILTER (WHERE {s.infinite}) AS s_infinite",
            f"count(*) FILTER (WHERE {s.missing}) AS s_missing",
@@ -906,8 +908,7 @@ def _check(engine: _Engine, src: _Source, m: Mapping, d: int | None) -> _Checked
         big = max(abs(float(tot["s_min"])), abs(float(tot["s_max"])))
         raise InputError(
             m.score, f"holds scores as large as {big:.6g}: coarsening to {d} decimals needs "
-                     f"|score| x 10^{d} below 2^52 (about 4.5e15) for the grid to be exact in "
-                     f"float64",
+                     f"|score| x 10^{d} below 10^15 for the grid to be exact",
             rows.where(f"abs({s.value}) * {10**d}.0 >= {MAX_GRID_INDEX}.0"),
             hint="Choose fewer decimals, or keep every distinct score")
 
@@ -933,7 +934,8 @@ def _check(engine: _Engine, src: _Source, m: Mapping, d: int | None) -> _Checked
 
 
 def _same(a, b) -> bool:
-    return type(a) is type(b) and (a == b or (a != a and b != b))
+    """The same raw label value (NaN labels are missing and never reach here)."""
+    return type(a) is type(b) and a == b
 
 
 def _check_label(rows: _Rows, src: _Source, m: Mapping, per: list) -> tuple[list, object, bool]:

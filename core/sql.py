@@ -26,8 +26,8 @@ quoted and in the name of the double type:
   ``("parquet", "/path/x.parquet")`` is written as Spark's file-as-table
   name, parquet followed by the path in backticks.
 
-BigQuery's NUMERIC holds at most 9 decimals: replace ``DECIMAL(38, 18)`` by
-``BIGNUMERIC`` and quote names in backticks there.
+BigQuery: quote names in backticks (its NUMERIC takes at most 9 decimals,
+so ``decimals`` up to 6 there).
 
 Coarsened scores (``decimals=d``)
 ---------------------------------
@@ -47,22 +47,24 @@ row-level sweep compares), and the coarse count table gives the row-level
 counts at every grid threshold, exactly.
 
 The statement computes k in two steps. First in exact decimal arithmetic,
-casting before scaling -- ``FLOOR(CAST(s AS DECIMAL(38, 18)) * 10^d)`` -- not
-in float64, where ``0.29 * 100`` is 28.999999999999996 and its floor 28.
-That first k can still be one off: an engine's cast of a double to a
-decimal is not exact (DuckDB gives 123456.289999999985516544 for the double
-nearest 123456.29, whose floor at 2 decimals is 123456.28; Spark rounds
-decimal products to fewer digits). So, second, one comparison in float64
-moves k by one where g(k) lies on the wrong side of s. The result no longer
-depends on the engine's decimal rules.
+casting before scaling -- ``FLOOR(CAST(s AS DECIMAL(38, d + 3)) * 10^d)`` --
+not in float64, where ``0.29 * 100`` is 28.999999999999996 and its floor 28.
+That first k can still be one off, because an engine's cast of a double to
+a decimal rounds (to d + 3 decimals here; DuckDB casts the double nearest
+123456.29 even to DECIMAL(38, 18) as 123456.289999999985516544, whose floor
+at 2 decimals is 123456.28; Spark rounds wide decimal products to fewer
+digits). So, second, one comparison in float64 moves k by one where g(k)
+lies on the wrong side of s. The result no longer depends on the engine's
+decimal rules. Three decimals beyond d keep the first step within one of
+the answer; more would only cost time (DuckDB casts a double to 18 decimals
+about three times slower than to 7).
 
-Precision limits: the grid index must be an exact integer in float64 and
-neighbouring grid values distinct doubles, so |s| * 10^d must stay below
-2^52 (about 4.5e15: scores in [0, 1] may keep up to 15 decimals, scores up
-to a million 9); ``decimals`` is 0 to 15. :func:`core.reduce.reduce_file`
-rejects scores beyond that with a message; an engine running the printed
-statement on larger values overflows the DECIMAL(38, 18) cast or gives
-misplaced counts, so check the score range first.
+Precision limits: |s| * 10^d must stay below 10^15, so that the grid index
+is an exact integer in float64 and neighbouring grid values are distinct
+doubles (scores in [0, 1] may keep up to 14 decimals, scores up to a
+million 9); ``decimals`` is 0 to 14. :func:`core.reduce.reduce_file` rejects
+larger scores with a message; an engine running the printed statement on
+them gives misplaced grid values, so check the score range first.
 
 Rows the statement cannot count (a missing label, weight, or an event's
 missing case cost) get a missing score, so the exported count table holds a
@@ -101,12 +103,11 @@ DIALECTS = ("ansi", "duckdb", "spark")
 #: The count table's columns besides the score and the groups, in order.
 COUNT_COLUMNS = ("events", "non_events", "event_cost", "events_sq", "non_events_sq")
 #: Largest number of decimals a score can be coarsened to.
-MAX_DECIMALS = 15
-#: |score| * 10**decimals must stay below this for the grid to be exact in float64.
-MAX_GRID_INDEX = 2**52
+MAX_DECIMALS = 14
+#: |score| * 10**decimals must stay below this for the grid to be exact (see the module docstring).
+MAX_GRID_INDEX = 10**15
 
 _DOUBLE = {"ansi": "DOUBLE PRECISION", "duckdb": "DOUBLE", "spark": "DOUBLE"}
-_DECIMAL = "DECIMAL(38, 18)"
 # names used inside the statement; a user column may not take them (any case)
 _RAW, _EVENT, _WEIGHT, _COST, _K = ("fulcrum_raw", "fulcrum_event", "fulcrum_weight",
                                     "fulcrum_cost", "fulcrum_k")
@@ -186,6 +187,13 @@ def quote_literal(value, dialect: str = "ansi") -> str:
                               f"use text, a number or a boolean")
 
 
+def _quoter(dialect: str):
+    def q(name: str) -> str:
+        return quote_identifier(name, dialect)
+
+    return q
+
+
 def _table_sql(table, dialect: str) -> str:
     if isinstance(table, Relation):
         return table.sql
@@ -240,7 +248,7 @@ def coarse_score_sql(raw: str, decimals: int, *, higher_is_riskier: bool = True,
     dbl = _DOUBLE[_check_dialect(dialect)]
     scale = 10**d
     fn = "FLOOR" if higher_is_riskier else "CEIL"
-    k_expr = f"{fn}(CAST({raw} AS {_DECIMAL}) * {scale})"
+    k_expr = f"{fn}(CAST({raw} AS DECIMAL(38, {d + 3})) * {scale})"
     k = quote_identifier(_K, dialect)
 
     def g(offset: str) -> str:
@@ -290,7 +298,7 @@ def _event_expr(label_q: str, positives: list, dialect: str) -> str:
 def _inner_select(table, *, score, label, positive, weight, case_cost, groups, dialect,
                   carry_groups=True) -> tuple[str, list[str]]:
     """Innermost level: raw score (missing where the row cannot be counted), event, weight, cost."""
-    q = lambda n: quote_identifier(n, dialect)  # noqa: E731
+    q = _quoter(dialect)
     dbl = _DOUBLE[dialect]
     pos = _positives(positive)
     lab = q(label)
@@ -312,7 +320,7 @@ def _inner_select(table, *, score, label, positive, weight, case_cost, groups, d
 
 
 def _sums(weight, case_cost, dialect) -> list[str]:
-    q = lambda n: quote_identifier(n, dialect)  # noqa: E731
+    q = _quoter(dialect)
     ev, w, c = q(_EVENT), q(_WEIGHT), q(_COST)
     if weight is None:
         out = [f"SUM({ev}) AS {q('events')}", f"SUM(1 - {ev}) AS {q('non_events')}"]
@@ -387,7 +395,7 @@ def reduction_sql(table, *, score: str, label: str, positive, weight: str | None
                or (c == "event_cost" and case_cost is not None)
                or (c in ("events_sq", "non_events_sq") and weight is not None)]
     groups = _check_names(score, label, weight, case_cost, groups, outputs)
-    q = lambda n: quote_identifier(n, dialect)  # noqa: E731
+    q = _quoter(dialect)
     inner, _ = _inner_select(table, score=score, label=label, positive=positive, weight=weight,
                              case_cost=case_cost, groups=groups, dialect=dialect)
     carried = [q(_EVENT)] + ([q(_WEIGHT)] if weight is not None else []) + (
@@ -438,7 +446,7 @@ def rounding_check_sql(table, *, score: str, label: str, positive, weight: str |
     if d is None:
         raise InputError("decimals", "the rounding check needs the number of decimals")
     _check_names(score, label, weight, None, (), ["events", "non_events"])
-    q = lambda n: quote_identifier(n, dialect)  # noqa: E731
+    q = _quoter(dialect)
     inner, _ = _inner_select(table, score=score, label=label, positive=positive, weight=weight,
                              case_cost=None, groups=(), dialect=dialect, carry_groups=False)
     sums = _sums(weight, None, dialect)[:2]
