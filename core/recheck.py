@@ -1,0 +1,677 @@
+"""Recheck: does an approved threshold still hold on new validation scores?
+
+:func:`recheck` takes a checked decision record (:func:`core.record.load_record`)
+and new labelled scores (a :class:`core.dataset.Dataset`, or a file read
+through the same intake with the record's mapping and event value, optionally
+overridden when columns were renamed) and answers, in this order:
+
+1. **Fit.** The new data must fit the record: the record's columns (named in
+   the message when one is missing), its event value, its score direction,
+   and scores in [0, 1] when the record's were.
+2. **Label maturity** (:func:`core.maturity.dataset_maturity`) at the as-of
+   date with the record's outcome horizon: open outcome windows are left out
+   and the mature share reported; without a score time or horizon the
+   statement says recent cases may look like non-events. With ``live=True``
+   (the data were collected while the threshold was live) the model-effect
+   statement says recall and precision are biased.
+3. **Rule verdicts** at the record's threshold and direction, judged as the
+   approval judged them (:func:`core.verdicts.judge_rules`: one-sided bounds
+   at the record's ``confidence``, 0.95 when it had none; the record's
+   deployment prevalence and volume; the capacity quantile over the new
+   data's periods), overall and in every subgroup present in both (the
+   capacity rule is a whole-system rule and is judged overall only).
+4. **Old against new** for recall, specificity, precision, NPV and flag rate
+   at the data's own mix: both proportions with Wilson intervals and the
+   difference with Newcombe's hybrid score interval (Newcombe, Stat Med 1998,
+   method 10; :func:`core.groups.newcombe_interval`).
+5. **Drift** of the scores from the record's stored bins
+   (:func:`core.drift.score_drift`) and of calibration
+   (:func:`core.drift.calibration_drift`).
+6. **The same policy now**: :func:`core.choose.choose` on the new data with
+   the record's resolved policy (its deployment prevalence included), beside
+   the approved threshold on the new data (:func:`core.choose.evaluate`).
+
+:func:`build_recheck_record` turns the :class:`RecheckResult` into the sealed
+recheck record (schema ``fulcrum.recheck/1``), which names the decision
+record by its ``integrity.sha256`` and carries its own digests (the same
+canonical JSON and :func:`core.record.seal` as the decision record). It holds
+summaries only, never a data row. :func:`exit_code` maps the overall verdict
+to the command line's status (0 every rule holds, 1 any fails or unclear).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import math
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+
+from core import intervals as _iv
+from core.choose import json_safe
+from core.errors import InputError
+from core.record import RecordError, canonical_json, digest, seal  # noqa: F401 (canonical_json re-exported)
+
+__all__ = [
+    "SCHEMA",
+    "COMPARED_METRICS",
+    "MetricComparison",
+    "GroupRecheck",
+    "RecheckResult",
+    "recheck",
+    "build_recheck_record",
+    "dumps_recheck",
+    "write_recheck",
+    "loads_recheck",
+    "load_recheck",
+    "exit_code",
+    "recheck_without_timestamps",
+]
+
+SCHEMA = "fulcrum.recheck/1"
+
+#: metric -> (label, successes, trials) in terms of tp, fp, fn, tn.
+COMPARED_METRICS = {
+    "recall": ("recall (sensitivity)", lambda c: (c["tp"], c["tp"] + c["fn"])),
+    "specificity": ("specificity", lambda c: (c["tn"], c["tn"] + c["fp"])),
+    "precision": ("precision (PPV) at the data's own prevalence",
+                  lambda c: (c["tp"], c["tp"] + c["fp"])),
+    "npv": ("NPV at the data's own prevalence", lambda c: (c["tn"], c["tn"] + c["fn"])),
+    "flag_rate": ("flag rate", lambda c: (c["tp"] + c["fp"], c["tp"] + c["fp"] + c["fn"] + c["tn"])),
+}
+
+COMPARISON_METHOD = ("Each side: the proportion at the approved threshold with its Wilson interval; "
+                     "difference new - approval with Newcombe's hybrid score interval for two "
+                     "independent proportions (Newcombe 1998, method 10). Precision and NPV here "
+                     "are at each data set's own prevalence (the rule verdicts use the record's "
+                     "deployment prevalence).")
+
+GROUP_RULES = ("min_recall", "min_precision", "min_specificity", "max_flag_rate")
+
+
+def _f(v) -> float:
+    if v is None:
+        return math.nan
+    if v == "inf":
+        return math.inf
+    if v == "-inf":
+        return -math.inf
+    return float(v)
+
+
+# =========================================================================== results
+
+@dataclass(frozen=True)
+class MetricComparison:
+    """One metric at approval and now, each with its interval, and the difference."""
+
+    metric: str
+    label: str
+    reference: float
+    reference_low: float
+    reference_high: float
+    new: float
+    new_low: float
+    new_high: float
+    difference: float
+    low: float
+    high: float
+    confidence: float
+    changed: bool
+
+    def to_dict(self) -> dict:
+        return json_safe(dict(self.__dict__))
+
+
+@dataclass(frozen=True)
+class GroupRecheck:
+    """The verdicts of one group present in both the record and the new data."""
+
+    column: str
+    group: str
+    verdicts: tuple
+    counts: dict
+    reference_counts: dict | None
+    values: dict = field(default_factory=dict)
+    reference_values: dict = field(default_factory=dict)
+
+    @property
+    def key(self) -> tuple[str, str]:
+        return (self.column, self.group)
+
+    def to_dict(self) -> dict:
+        return json_safe({"column": self.column, "group": self.group, "counts": self.counts,
+                          "reference_counts": self.reference_counts, "values": self.values,
+                          "reference_values": self.reference_values,
+                          "verdicts": [v.to_dict() for v in self.verdicts]})
+
+
+@dataclass(frozen=True, eq=False)
+class RecheckResult:
+    """Everything a recheck found (see :func:`recheck`)."""
+
+    record: dict
+    dataset: object
+    mature: object
+    maturity: object
+    live: bool
+    model_effect: str | None
+    threshold: float
+    higher_is_riskier: bool
+    confidence: float
+    confidence_note: str
+    counts: dict
+    verdicts: tuple
+    groups: tuple[GroupRecheck, ...]
+    new_groups: tuple[str, ...]
+    vanished_groups: tuple[str, ...]
+    group_notes: tuple[str, ...]
+    fairness: dict | None
+    comparisons: tuple[MetricComparison, ...]
+    drift: object
+    calibration: object
+    now: dict
+    overall: str
+    summary: str
+    statements: tuple[str, ...]
+    mapping_override: dict = field(default_factory=dict)
+
+    @property
+    def record_sha256(self) -> str:
+        return self.record["integrity"]["sha256"]
+
+    @property
+    def group_verdicts(self) -> dict:
+        return {g.key: g.verdicts for g in self.groups}
+
+    def verdict(self, name: str, group: tuple[str, str] | None = None):
+        vs = self.verdicts if group is None else self.group_verdicts[group]
+        for v in vs:
+            if v.name == name:
+                return v
+        raise KeyError(name)
+
+
+# =========================================================================== input
+
+def _mapping(record: dict, mapping_override):
+    from core.dataset import Mapping
+
+    base = Mapping.from_dict(record["data"]["mapping"])
+    if not mapping_override:
+        return base, {}
+    over = dict(mapping_override)
+    known = set(base.to_dict())
+    bad = sorted(set(over) - known)
+    if bad:
+        raise InputError("mapping override", f"has unknown field(s) {', '.join(bad)}; known "
+                         f"fields are {', '.join(sorted(known))}")
+    if "higher_is_riskier" in over and bool(over["higher_is_riskier"]) != base.higher_is_riskier:
+        raise InputError("mapping override", "cannot change the score direction: the approved "
+                         "threshold was set for " + ("higher" if base.higher_is_riskier else "lower")
+                         + " scores meaning higher risk")
+    if "groups" in over and over["groups"] is not None and not isinstance(over["groups"], str):
+        over["groups"] = tuple(over["groups"])
+    d = base.to_dict() | over
+    return Mapping.from_dict(d), over
+
+
+def _load(record, source, mapping):
+    from core.dataset import Dataset
+    from core.intake import load_dataset
+
+    if isinstance(source, Dataset):
+        return source
+    try:
+        return load_dataset(source, mapping)
+    except InputError as exc:
+        cols = ", ".join(f"{role} {col!r}" for role, col in
+                         (("score", mapping.score), ("label", mapping.label)) if col)
+        raise InputError("new data", f"{exc} -- the decision record maps {cols} (event value "
+                         f"{mapping.positive_label!r}); if the columns were renamed, give the new "
+                         "names (a mapping override)") from None
+
+
+def _check_fit(record, ds) -> None:
+    d = record["data"]
+    if ds.higher_is_riskier != bool(record["higher_is_riskier"]):
+        raise InputError("score direction", "the new data say "
+                         + ("higher" if ds.higher_is_riskier else "lower")
+                         + " scores mean higher risk; the decision record's threshold is for "
+                         + ("higher" if record["higher_is_riskier"] else "lower"))
+    cal = (record.get("reference") or {}).get("calibration") or {}
+    if cal.get("scores_in_unit_interval") and not ds.scores_in_unit_interval:
+        lo, hi = ds.score_range
+        s = np.asarray(ds.y_score)
+        out = np.flatnonzero((s < 0) | (s > 1))
+        raise InputError(d.get("score_column") or "score",
+                         f"the new scores run from {lo:.6g} to {hi:.6g}, but the decision record's "
+                         "scores were probabilities in [0, 1]: a different score scale (or model "
+                         f"version) cannot be judged against this threshold; {out.size:,} rows lie "
+                         "outside [0, 1]", out if ds.kind == "rows" else None)
+    want = set(record["data"].get("group_columns") or [])
+    have = set(ds.groups)
+    if want and not (want & have):
+        raise InputError("groups", "the new data have none of the record's group columns ("
+                         + ", ".join(sorted(want)) + "); map them (a mapping override) so the "
+                         "subgroup rules can be rechecked")
+
+
+# =========================================================================== numbers
+
+def _resolved_value(rp: dict, section: str, key: str):
+    e = (rp.get(section) or {}).get(key)
+    return None if e is None else e.get("value")
+
+
+def _record_policy(record: dict):
+    """The record's policy with its resolved deployment prevalence and volume fixed in."""
+    from core.policy import Policy
+
+    rp = record["policy"]["resolved"]
+    d = json.loads(json.dumps(record["policy"]["as_written"]))
+    dep = dict(d.get("deployment") or {})
+    for key in ("prevalence", "cases_per_period", "period"):
+        v = _resolved_value(rp, "deployment", key)
+        if v is not None and dep.get(key) is None:
+            dep[key] = v
+    if dep.get("prevalence") is not None and dep.get("prevalence_low") is not None:
+        lo, hi = dep.get("prevalence_low"), dep.get("prevalence_high")
+        if not (lo <= dep["prevalence"] <= hi):
+            dep.pop("prevalence_low", None)
+            dep.pop("prevalence_high", None)
+    d["deployment"] = dep
+    return Policy.from_dict(d)
+
+
+def _counts_at(ds, t: float) -> tuple[dict, float | None, float | None]:
+    """Counts at threshold t and, with sampling weights, Kish's effective class sizes."""
+    c = ds.curve()
+    p = c.at(t)
+    n1 = n0 = None
+    if ds.kind == "rows" and ds.weight_kind == "sampling" and ds.sample_weight is not None:
+        w = np.asarray(ds.sample_weight, dtype=np.float64)
+        y = np.asarray(ds.y_true, dtype=bool)
+        n1 = float(_iv.effective_size_from_sums(w[y].sum(), (w[y] ** 2).sum())) if y.any() else 0.0
+        n0 = float(_iv.effective_size_from_sums(w[~y].sum(), (w[~y] ** 2).sum())) if (~y).any() \
+            else 0.0
+    return {k: float(v) for k, v in p.counts.items()}, n1, n0
+
+
+def _period_counts(ds, t, rp_period, prevalence, cpp):
+    from core.capacity import flags_per_period
+
+    df = flags_per_period(ds.curve(), ds.y_score, ds.score_time, [t], period=rp_period,
+                          sample_weight=ds.sample_weight, y_true=ds.y_true, prevalence=prevalence,
+                          cases_per_period=cpp)
+    return df.iloc[:, 0].to_numpy()
+
+
+def _judge(ds, t, rules, *, confidence, prevalence, cpp, period, quantile, margins, overall=True):
+    from core.verdicts import judge_rules
+
+    counts, n1, n0 = _counts_at(ds, t)
+    if not overall:
+        rules = {k: v for k, v in rules.items() if k in GROUP_RULES}
+    period_counts = None
+    q = quantile
+    if "max_flagged_per_period" in rules and q is not None:
+        if ds.kind != "rows" or ds.score_time is None:
+            raise InputError("max_flagged_per_period", "the record judges capacity on the "
+                             "flagged cases per period; the new data need the score-time column "
+                             f"{ds.mapping.score_time or '(none mapped)'}")
+        period_counts = _period_counts(ds, t, period, prevalence, cpp)
+    vs = judge_rules(counts["tp"], counts["fp"], counts["fn"], counts["tn"], rules,
+                     confidence=confidence, prevalence=prevalence, cases_per_period=cpp,
+                     period=period, capacity_quantile=q if period_counts is not None else None,
+                     period_counts=period_counts, n_events=n1, n_nonevents=n0,
+                     approval_margins=margins)
+    return vs, counts
+
+
+def _compare(ref_counts: dict, new_counts: dict, confidence: float) -> tuple[MetricComparison, ...]:
+    from core.groups import newcombe_interval
+
+    out = []
+    for m, (label, fn) in COMPARED_METRICS.items():
+        x0, n0 = fn(ref_counts)
+        x1, n1 = fn(new_counts)
+        rlo, rhi = _iv.wilson_interval(x0, n0, confidence)
+        nlo, nhi = _iv.wilson_interval(x1, n1, confidence)
+        lo, hi = newcombe_interval(x1, n1, x0, n0, confidence)
+        r = x0 / n0 if n0 > 0 else math.nan
+        v = x1 / n1 if n1 > 0 else math.nan
+        changed = bool(np.isfinite(lo) and np.isfinite(hi) and (lo > 0 or hi < 0))
+        out.append(MetricComparison(metric=m, label=label, reference=r, reference_low=float(rlo),
+                                    reference_high=float(rhi), new=v, new_low=float(nlo),
+                                    new_high=float(nhi), difference=v - r, low=float(lo),
+                                    high=float(hi), confidence=confidence, changed=changed))
+    return tuple(out)
+
+
+def _group_values(row) -> dict:
+    if not row:
+        return {}
+    out = {}
+    for m in ("recall", "precision", "specificity", "flag_rate"):
+        v = (row.get("values") or {}).get(m)
+        if v is not None:
+            out[m] = {"value": v.get("estimate"), "low": v.get("low"), "high": v.get("high"),
+                      "method": v.get("method")}
+    return json_safe(out)
+
+
+def _reference_bins(record):
+    from core.drift import score_bins
+
+    ref = record["reference"]
+    b = ref["score_bins"]
+    return score_bins(b["edges"], b["events"], b["non_events"],
+                      events_size=ref.get("effective_events"),
+                      non_events_size=ref.get("effective_non_events"))
+
+
+def _point_now(p, rp_period) -> dict:
+    return json_safe({
+        "threshold": p.threshold,
+        "threshold_interval": {"low": p.interval_low, "high": p.interval_high, "closed": p.closed},
+        "counts": p.counts, "recall": p.deployment.get("recall"),
+        "precision": p.deployment.get("precision"), "flag_rate": p.deployment.get("flag_rate"),
+        "cost_per_case": p.cost_per_case, "cost_per_period": p.cost_per_period,
+        "flagged_per_period": p.flagged_per_period, "period": rp_period,
+        "meets_rules": p.meets_rules, "rules_met": {r.name: r.met for r in p.rules},
+    })
+
+
+def _choice_now(record, ds, policy, t) -> dict:
+    from core.choose import choose, evaluate
+    from core.policy import resolve_policy
+
+    rp = resolve_policy(policy, ds)
+    at_approved = evaluate(ds, policy, t).point
+    ch = choose(ds, policy)
+    m = record["metrics"]
+    wl = m.get("workload") or {}
+    per = wl.get("per_period") or {}
+    approval = json_safe({
+        "threshold": record["threshold"], "counts": record["counts"],
+        "recall": m["deployment"]["recall"]["value"], "precision": m["deployment"]["precision"]["value"],
+        "flag_rate": m["deployment"]["flag_rate"]["value"],
+        "cost_per_case": m["expected_cost"].get("per_case"),
+        "cost_per_period": m["expected_cost"].get("per_period"),
+        "flagged_per_period": per.get("flagged"), "period": wl.get("period"),
+    })
+    out = {"policy_note": ("The record's resolved policy (its deployment prevalence "
+                           f"{rp.prevalence:.4g} included) applied to the new data."),
+           "approval": approval, "approved_threshold_now": _point_now(at_approved, rp.period),
+           "chosen_now": None if ch.point is None else _point_now(ch.point, rp.period),
+           "explanation": ch.explanation, "infeasible": list(ch.infeasible)}
+    if ch.point is not None:
+        a, n = at_approved, ch.point
+        def diff(x, y):
+            return None if x is None or y is None else y - x
+        out["difference"] = json_safe({
+            "threshold": diff(t, float(n.threshold)),
+            "flagged": diff(a.counts["tp"] + a.counts["fp"], n.counts["tp"] + n.counts["fp"]),
+            "tp": diff(a.counts["tp"], n.counts["tp"]), "fp": diff(a.counts["fp"], n.counts["fp"]),
+            "cost_per_case": diff(a.cost_per_case, n.cost_per_case),
+            "cost_per_period": diff(a.cost_per_period, n.cost_per_period),
+            "flagged_per_period": diff(a.flagged_per_period, n.flagged_per_period),
+            "same_point": bool(a.index == n.index),
+        })
+        if a.index == n.index:
+            out["statement"] = "The same policy picks the approved point on the new data."
+        else:
+            out["statement"] = (f"On the new data the same policy would choose threshold "
+                                f"{float(n.threshold)!r} instead of {t!r}.")
+    else:
+        out["difference"] = None
+        out["statement"] = ("On the new data no threshold meets every rule of the policy: "
+                            + " ".join(ch.infeasible))
+    return json_safe(out)
+
+
+# =========================================================================== the pipeline
+
+def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = False,
+            mapping_override: dict | None = None, n_replicates: int = 2000, seed: int = 0,
+            progress=None) -> RecheckResult:
+    """Recheck a decision record's threshold on new labelled scores (see the module docstring).
+
+    Parameters
+    ----------
+    record : dict
+        A decision record, checked here again (:func:`core.record.check_record`,
+        integrity included) -- a :class:`core.record.RecordError` when it fails.
+    new_dataset_or_source : Dataset, path, bytes or RawTable
+        A Dataset is used as it is (its direction must match the record's);
+        anything else is read with the record's mapping (and event value),
+        updated by ``mapping_override``.
+    as_of : date, text or None
+        The as-of date of label maturity (None: today).
+    live : bool
+        The user's declaration that the new data were collected while the
+        approved threshold was live.
+    mapping_override : dict, optional
+        Mapping fields that differ from the record's (renamed columns).
+    n_replicates, seed, progress
+        For the subgroup table of the new data (:func:`core.groups.subgroup_report`:
+        per-group recall, precision and specificity with intervals, cluster
+        bootstrap when a cluster column is mapped, and the policy's fairness
+        criterion); replicate r uses ``default_rng([seed, r])``.
+    """
+    from core.calibration import calibration_report
+    from core.drift import bin_dataset, calibration_drift, score_drift
+    from core.maturity import dataset_maturity, model_effect_statement
+    from core.record import check_record
+    from core.verdicts import DEFAULT_CONFIDENCE, overall_verdict, verdict_summary
+
+    check_record(record)
+    mapping, over = _mapping(record, mapping_override)
+    ds = _load(record, new_dataset_or_source, mapping)
+    _check_fit(record, ds)
+    horizon = record["data"].get("outcome_horizon_days")
+    mat = dataset_maturity(ds, as_of, horizon_days=horizon)
+    if mat.n_mature == 0:
+        raise InputError("as_of", "no new case is mature: " + mat.statement)
+    mature = ds if mat.n_mature == mat.n_cases else ds.subset(mat.mask)
+    t = _f(record["threshold"])
+    rp = record["policy"]["resolved"]
+    conf_v = _resolved_value(rp, "rules", "confidence")
+    confidence = DEFAULT_CONFIDENCE if conf_v is None else float(conf_v)
+    conf_note = ("the record's confidence" if conf_v is not None else
+                 f"the record set no confidence: {DEFAULT_CONFIDENCE:g}")
+    rules = {k: float(v["value"]) for k, v in (rp.get("rules") or {}).items()
+             if k not in ("capacity_quantile", "confidence")}
+    prevalence = _resolved_value(rp, "deployment", "prevalence")
+    cpp = _resolved_value(rp, "deployment", "cases_per_period")
+    period = _resolved_value(rp, "deployment", "period") or "day"
+    quantile = _resolved_value(rp, "rules", "capacity_quantile")
+    margins = {r["name"]: r.get("margin") for r in (record.get("choice") or {}).get("rules", [])
+               if r.get("margin") is not None}
+    kw = dict(confidence=confidence, prevalence=prevalence, cpp=cpp, period=period,
+              quantile=quantile)
+    verdicts, counts = _judge(mature, t, rules, margins=margins, **kw)
+
+    # subgroups present in both
+    ref_rows = (record.get("groups") or {}).get("rows") or []
+    ref_by = {(str(r["column"]), str(r["group"])): r for r in ref_rows
+              if len(r.get("columns") or [r["column"]]) == 1}
+    groups, new_only, notes = [], [], []
+    for col, values in mature.groups.items():
+        vals = np.asarray(values, dtype=object)
+        present = sorted({v for v in vals.tolist() if v is not None})
+        for g in present:
+            key = (col, g)
+            if key not in ref_by:
+                new_only.append(f"{col} = {g}")
+                continue
+            sub = mature.subset(vals == g)
+            gv, gc = _judge(sub, t, rules, margins=None, overall=False, **kw)
+            r = ref_by[key]
+            groups.append(GroupRecheck(column=col, group=g, verdicts=gv, counts=gc,
+                                       reference_counts={k: r[k] for k in ("tp", "fp", "fn", "tn")}))
+    fairness = None
+    if mature.groups:
+        from core.groups import subgroup_report
+
+        rep = subgroup_report(mature, t, policy=_record_policy(record), confidence=confidence,
+                              n_replicates=n_replicates, seed=seed, progress=progress).to_dict()
+        fairness = rep.get("fairness")
+        rows = {(str(x["column"]), str(x["group"])): x for x in rep["rows"]
+                if len(x.get("columns") or [x["column"]]) == 1}
+        groups = [replace(g, values=_group_values(rows.get(g.key)),
+                          reference_values=_group_values(ref_by.get(g.key))) for g in groups]
+    have = {g.key for g in groups}
+    gone = tuple(f"{c} = {g}" for c, g in ref_by if (c, g) not in have
+                 and f"{c} = {g}" not in new_only)
+    if "max_flagged_per_period" in rules and groups:
+        notes.append("Flagged cases per period is a whole-system rule: it is judged over all "
+                     "cases, not per group.")
+
+    # old against new
+    ref_counts = {k: float(record["counts"][k]) for k in ("tp", "fp", "fn", "tn")}
+    comparisons = _compare(ref_counts, counts, 0.95)
+
+    drift = score_drift(_reference_bins(record), bin_dataset(mature, record["reference"]["score_bins"]
+                                                             ["edges"]), confidence=0.95)
+    cal_new = calibration_report(mature, confidence=float(record["calibration"].get("confidence")
+                                                          or 0.95))
+    cal = calibration_drift(record["calibration"], cal_new)
+    now = _choice_now(record, mature, _record_policy(record), t)
+
+    gmap = {g.key: g.verdicts for g in groups}
+    overall = overall_verdict(verdicts, gmap)
+    summary = verdict_summary(verdicts, gmap)
+    st = [mat.statement]
+    eff = model_effect_statement(live)
+    if eff:
+        st.append(eff)
+    if mature.n_events < 100:
+        st.append(f"Only {mature.n_events:,.0f} mature events: every number here is shaky, and "
+                  "verdicts may stay unclear (validation studies want at least 100 events).")
+    return RecheckResult(
+        record=record, dataset=ds, mature=mature, maturity=mat, live=bool(live),
+        model_effect=eff, threshold=t, higher_is_riskier=bool(record["higher_is_riskier"]),
+        confidence=confidence, confidence_note=conf_note, counts=counts, verdicts=tuple(verdicts),
+        groups=tuple(groups), new_groups=tuple(new_only), vanished_groups=gone,
+        group_notes=tuple(notes), fairness=fairness, comparisons=comparisons, drift=drift, calibration=cal, now=now,
+        overall=overall, summary=summary, statements=tuple(st), mapping_override=over)
+
+
+def exit_code(result: RecheckResult) -> int:
+    """0 when every rule holds (overall and in every group), 1 when any fails or is unclear."""
+    return 0 if result.overall == "holds" else 1
+
+
+# =========================================================================== the recheck record
+
+def _utc_now() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def _data_summary(r: RecheckResult) -> dict:
+    ds, m = r.dataset, r.mature
+    c = m.curve()
+    window = None
+    if ds.kind == "rows" and ds.score_time is not None:
+        st = ds.score_time[~np.isnat(ds.score_time)]
+        if st.size:
+            window = {"first_day": str(st.min().astype("datetime64[D]")),
+                      "last_day": str(st.max().astype("datetime64[D]"))}
+    return json_safe({
+        "file_name": ds.file_name, "sha256": ds.fingerprint, "kind": ds.kind, "rows": ds.n_rows,
+        "mature_rows": m.n_rows, "mature_sha256": m.fingerprint, "events": c.n_events,
+        "non_events": c.n_nonevents, "prevalence": c.prevalence,
+        "score_time_window": window, "mapping": ds.mapping.to_dict(),
+        "mapping_override": r.mapping_override,
+        "warnings": [w.message for w in ds.warnings],
+    })
+
+
+def build_recheck_record(result: RecheckResult, *, created_utc: str | None = None) -> dict:
+    """The sealed recheck record (schema ``fulcrum.recheck/1``) of a :class:`RecheckResult`."""
+    from core import __version__, cautions
+
+    r = result
+    rec = r.record
+    body = {
+        "schema": SCHEMA,
+        "created_utc": created_utc or _utc_now(),
+        "software_version": __version__,
+        "decision_record": {
+            "sha256": r.record_sha256, "created_utc": rec["created_utc"],
+            "data_sha256": rec["data"]["sha256"], "data_file_name": rec["data"].get("file_name"),
+            "memo_title": (rec.get("memo") or {}).get("title"),
+        },
+        "threshold": rec["threshold"], "higher_is_riskier": r.higher_is_riskier,
+        "confidence": r.confidence, "confidence_note": r.confidence_note,
+        "data": _data_summary(r),
+        "as_of": r.maturity.as_of_text,
+        "maturity": r.maturity.to_dict(),
+        "collected_while_live": r.live, "model_effect": r.model_effect,
+        "overall_verdict": r.overall, "summary": r.summary,
+        "counts": r.counts,
+        "rules": [v.to_dict() for v in r.verdicts],
+        "groups": {"compared": [g.to_dict() for g in r.groups], "new": list(r.new_groups),
+                   "vanished": list(r.vanished_groups), "notes": list(r.group_notes),
+                   "fairness": r.fairness},
+        "comparison": {"method": COMPARISON_METHOD,
+                       "metrics": [c.to_dict() for c in r.comparisons]},
+        "drift": r.drift.to_dict(),
+        "calibration_drift": r.calibration.to_dict(),
+        "policy_now": r.now,
+        "statements": list(r.statements),
+        "cautions": {"full": cautions.FULL, "label_shift": cautions.LABEL_SHIFT},
+    }
+    return seal(json_safe(body))
+
+
+def recheck_without_timestamps(rec: dict) -> dict:
+    """A recheck record without ``created_utc`` and ``integrity``, to compare two."""
+    return {k: v for k, v in rec.items() if k not in ("created_utc", "integrity")}
+
+
+def dumps_recheck(rec: dict) -> str:
+    """Indented JSON text (NaN and infinities refused)."""
+    return json.dumps(rec, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+def write_recheck(rec: dict, path) -> None:
+    Path(path).write_text(dumps_recheck(rec), encoding="utf-8")
+
+
+def _no_constants(name):
+    raise ValueError(f"{name} is not allowed in a recheck record")
+
+
+def loads_recheck(text, *, source: str | None = None) -> dict:
+    """Parse a recheck record and verify its schema and integrity (RecordError names the field)."""
+    if isinstance(text, (bytes, bytearray)):
+        text = bytes(text).decode("utf-8-sig")
+    try:
+        rec = json.loads(text, parse_constant=_no_constants)
+    except ValueError as exc:
+        raise RecordError(None, f"is not valid JSON: {exc}", source=source) from None
+    if not isinstance(rec, dict) or rec.get("schema") != SCHEMA:
+        got = rec.get("schema") if isinstance(rec, dict) else None
+        raise RecordError("schema", f"is {got!r}; a recheck record has {SCHEMA!r}", source=source)
+    integ = rec.get("integrity")
+    if not isinstance(integ, dict) or "sha256" not in integ:
+        raise RecordError("integrity", "is missing", source=source)
+    fresh = seal(rec)["integrity"]
+    sections = integ.get("sections") or {}
+    changed = sorted(set(fresh["sections"]) ^ set(sections)) + sorted(
+        k for k in fresh["sections"] if k in sections and sections[k] != fresh["sections"][k])
+    if changed or fresh["sha256"] != integ["sha256"]:
+        name = changed[0] if changed else "integrity.sha256"
+        raise RecordError(name, "was changed after the recheck record was written; it is refused",
+                          source=source)
+    return rec
+
+
+def load_recheck(path) -> dict:
+    p = Path(path)
+    return loads_recheck(p.read_bytes(), source=p.name)
