@@ -59,8 +59,14 @@ def _add_pick(sub) -> None:
     add_pick(sub)
 
 
+def _add_recheck(sub) -> None:
+    from core.cli_recheck import add_recheck
+
+    add_recheck(sub)
+
+
 #: name -> function that adds the subcommand to the subparsers object.
-COMMANDS = {"app": _add_app, "pick": _add_pick}
+COMMANDS = {"app": _add_app, "pick": _add_pick, "recheck": _add_recheck}
 
 
 def build_parser() -> argparse.ArgumentParser:

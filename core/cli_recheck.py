@@ -1,0 +1,165 @@
+"""``fulcrum recheck``: does an approved threshold still hold on new validation scores?
+
+The same computation as the app's Recheck page (:func:`core.recheck.recheck`
+then :func:`core.recheck.build_recheck_record`), so their recheck records
+agree but for the time. Prints the verdict summary first, then the rules,
+groups, drift, calibration and what the same policy would choose now.
+
+Exit codes: 0 every rule holds (overall and in every group), 1 any rule fails
+or is unclear, 2 bad input or a decision record that fails its integrity
+check (one line on stderr, see :mod:`core.cli`).
+"""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+from core.errors import InputError
+
+__all__ = ["add_recheck", "run_recheck", "recheck_summary_lines", "override_from_args"]
+
+_DESCRIPTION = """\
+Recheck an approved threshold on new labelled scores. The decision record's integrity is checked
+first; the new data are read with the record's column mapping and event value (give --score,
+--label, --positive ... only for what changed, e.g. renamed columns). Cases whose outcome window
+is still open at --as-of (default: today, always printed) are left out. Every rule of the record's
+policy is judged as at approval (one-sided bounds at the record's confidence): holds, fails or
+unclear, overall and per subgroup; the scores' drift, calibration drift and what the same policy
+would choose now are reported.
+
+Exit status: 0 every rule holds, 1 any rule fails or is unclear, 2 bad input or a record that
+fails its integrity check."""
+
+#: option dest -> Mapping field
+_OVERRIDES = {"score": "score", "label": "label", "positive": "positive_label",
+              "weight": "weight", "weight_kind": "weight_kind", "cluster": "cluster",
+              "score_time": "score_time", "outcome_time": "outcome_time", "case_cost": "case_cost"}
+
+
+def add_recheck(sub) -> None:
+    """Register ``recheck`` on an argparse subparsers object."""
+    p = sub.add_parser("recheck", help="recheck an approved threshold on new scores",
+                       description=_DESCRIPTION,
+                       formatter_class=argparse.RawDescriptionHelpFormatter)
+    p.add_argument("data", metavar="NEW_DATA", help="new labelled scores: CSV, TSV, Parquet or Excel")
+    p.add_argument("--record", required=True, metavar="DECISION.json",
+                   help="the decision record (fulcrum.decision/1) whose threshold is rechecked")
+    g = p.add_argument_group("columns (only what differs from the record's mapping)")
+    g.add_argument("--score", metavar="COL", help="the score column")
+    g.add_argument("--label", metavar="COL", help="the outcome (label) column")
+    g.add_argument("--positive", metavar="VALUE", help="the label value that marks the event")
+    g.add_argument("--sheet", metavar="NAME", help="Excel: the sheet to read (default: the first)")
+    g.add_argument("--weight", metavar="COL", help="a weight column")
+    g.add_argument("--weight-kind", choices=("frequency", "sampling"), help="with --weight")
+    g.add_argument("--group", metavar="COL", nargs="+", action="extend", default=None,
+                   help="group columns (replace the record's)")
+    g.add_argument("--cluster", metavar="COL", help="cluster id (e.g. patient id)")
+    g.add_argument("--score-time", metavar="COL", help="when each score was made")
+    g.add_argument("--outcome-time", metavar="COL", help="when each event happened")
+    g.add_argument("--case-cost", metavar="COL", help="what each missed event costs (a column)")
+    a = p.add_argument_group("recheck")
+    a.add_argument("--as-of", metavar="DATE",
+                   help="label maturity as of this date (ISO 8601; default: today)")
+    a.add_argument("--live", action="store_true",
+                   help="the new data were collected while the approved threshold was live")
+    a.add_argument("--seed", metavar="N", type=int, default=None,
+                   help="seed of the subgroup bootstrap (default: the record's)")
+    a.add_argument("--replicates", metavar="N", type=int, default=None,
+                   help="bootstrap replicates of the subgroup table (default: the record's)")
+    o = p.add_argument_group("outputs")
+    o.add_argument("--out", metavar="RECHECK.json", help="write the recheck record here")
+    o.add_argument("--memo", metavar="OUT.pdf", help="write the recheck memo (PDF) here")
+    o.add_argument("--markdown", metavar="OUT.md", help="write the recheck memo as Markdown here")
+    p.set_defaults(func=run_recheck)
+
+
+def override_from_args(args) -> dict:
+    """The mapping fields the options change (None: keep the record's)."""
+    over = {field: getattr(args, dest) for dest, field in _OVERRIDES.items()
+            if getattr(args, dest) is not None}
+    if args.group is not None:
+        over["groups"] = tuple(args.group)
+    return over
+
+
+def run_recheck(args) -> int:
+    """Run ``fulcrum recheck`` (see the module docstring)."""
+    from core.recheck import build_recheck_record, exit_code, recheck, write_recheck
+    from core.record import load_record
+
+    for opt, path in (("--out", args.out), ("--memo", args.memo), ("--markdown", args.markdown)):
+        if path and not Path(path).resolve().parent.is_dir():
+            raise InputError(opt, f"the folder of {path} does not exist")
+    record = load_record(args.record)
+    an = record.get("analysis") or {}
+    seed = args.seed if args.seed is not None else int(an.get("seed", 0))
+    reps = args.replicates if args.replicates is not None else int(an.get("n_replicates", 2000))
+    source = args.data
+    if args.sheet is not None:
+        from core.reading import read_table
+
+        source = read_table(args.data, sheet=args.sheet)
+    result = recheck(record, source, as_of=args.as_of, live=args.live,
+                     mapping_override=override_from_args(args), n_replicates=reps, seed=seed)
+    rec = build_recheck_record(result)
+    written = []
+    if args.out:
+        write_recheck(rec, args.out)
+        written.append(("recheck record", args.out))
+    if args.memo:
+        from core.recheck_memo import write_recheck_pdf
+
+        write_recheck_pdf(rec, args.memo)
+        written.append(("recheck memo", args.memo))
+    if args.markdown:
+        from core.recheck_memo import write_recheck_markdown
+
+        write_recheck_markdown(rec, args.markdown)
+        written.append(("markdown", args.markdown))
+    print("\n".join(recheck_summary_lines(rec, written)))
+    return exit_code(result)
+
+
+def recheck_summary_lines(rec: dict, written=()) -> list[str]:
+    """The summary ``fulcrum recheck`` prints, verdict summary first."""
+    from core import cautions
+    from core.recheck_memo import rule_line
+
+    d = rec["data"]
+    out = [f"Recheck: {rec['summary']}  [{rec['overall_verdict'].upper()}]", "",
+           f"Decision record {rec['decision_record']['sha256'][:16]} (threshold "
+           f"{rec['threshold']}, {'>=' if rec['higher_is_riskier'] else '<='}); new data "
+           f"{d.get('file_name') or 'data'}: {d['rows']:,} cases, {d['mature_rows']:,} mature, "
+           f"{d['events']:,.0f} events",
+           rec["maturity"]["statement"]]
+    if rec.get("model_effect"):
+        out.append("LIVE: " + rec["model_effect"])
+    out.append("")
+    for v in rec["rules"]:
+        out.append("Rule " + rule_line(v))
+    for g in rec["groups"]["compared"]:
+        for v in g["verdicts"]:
+            if v["verdict"] != "holds":
+                out.append(f"  {g['column']} = {g['group']}: " + rule_line(v))
+    if rec["groups"]["new"]:
+        out.append("New groups: " + ", ".join(rec["groups"]["new"]))
+    if rec["groups"]["vanished"]:
+        out.append("Vanished groups: " + ", ".join(rec["groups"]["vanished"]))
+    dr = rec["drift"]
+    out.append("")
+    out.append(f"Drift: PSI {dr['psi']['value']:.3f} ({dr['psi']['band']}), events "
+               f"{dr['psi_events']['value']:.3f} ({dr['psi_events']['band']}), non-events "
+               f"{dr['psi_non_events']['value']:.3f} ({dr['psi_non_events']['band']}); KS "
+               f"{dr['ks']['statistic']:.3f} (exact at most {dr['ks']['upper_bound']:.3f})")
+    out.append(dr["prevalence"]["statement"])
+    cal = rec["calibration_drift"]
+    out.append(f"Calibration: {cal['verdict']}" + ("; changed since approval" if cal["drifted"]
+                                                    else ""))
+    out.append("Same policy now: " + rec["policy_now"]["statement"])
+    out.append("")
+    out.append("Note: " + cautions.SHORT)
+    out.append(f"Recheck record sha256 {rec['integrity']['sha256']}")
+    for what, path in written:
+        out.append(f"Wrote the {what}: {path}")
+    return out

@@ -1,0 +1,114 @@
+"""``fulcrum recheck`` as a subprocess: pick on the first demo quarter, recheck on the second."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from app.policy_form import POLICY_DIR
+from core.cli import build_parser
+from core.intake import demo_path
+from core.recheck import build_recheck_record, load_recheck, recheck, recheck_without_timestamps
+from core.recheck_memo import recheck_markdown
+from core.record import load_record
+
+REPS = "200"  # the exact number does not matter here; the product default is 2,000
+ROOT = Path(__file__).resolve().parents[1]
+AS_OF = "2025-09-30"
+PICK = [str(demo_path("hospital_q1")), "--score", "risk_score", "--label", "deteriorated",
+        "--positive", "yes", "--group", "site", "age_band", "--cluster", "patient_id",
+        "--score-time", "score_time", "--outcome-time", "outcome_time",
+        "--outcome-horizon-days", "2", "--policy", str(POLICY_DIR / "hospital.toml"),
+        "--production-decimals", "4", "--memo-fields",
+        str(ROOT / "sample_data" / "memo_fields" / "hospital.toml"), "--replicates", REPS]
+
+
+def run(args):
+    return subprocess.run(["fulcrum"] + list(args), capture_output=True, text=True, timeout=600,
+                          cwd=ROOT)
+
+
+@pytest.fixture(scope="module")
+def decision(tmp_path_factory):
+    out = tmp_path_factory.mktemp("recheck")
+    res = run(["pick", *PICK, "--record", str(out / "decision.json")])
+    assert res.returncode == 0, res.stderr
+    return out
+
+
+@pytest.fixture(scope="module")
+def q2_run(decision):
+    out = decision
+    res = run(["recheck", str(demo_path("hospital_q2")), "--record", str(out / "decision.json"),
+               "--as-of", AS_OF, "--out", str(out / "recheck.json"), "--memo",
+               str(out / "recheck.pdf"), "--markdown", str(out / "recheck.md")])
+    return res, out
+
+
+def test_q2_recheck_fails_at_wendlecombe(q2_run):
+    res, out = q2_run
+    assert res.returncode == 1, res.stderr
+    assert res.stderr == ""
+    first = res.stdout.splitlines()[0]
+    assert first.startswith("Recheck: ") and "recall at site Wendlecombe fails" in first
+    assert "As of 2025-09-30 00:00" in res.stdout
+    rec = load_recheck(out / "recheck.json")
+    decision = load_record(out / "decision.json")
+    assert rec["decision_record"]["sha256"] == decision["integrity"]["sha256"]
+    g = {(x["column"], x["group"]): x for x in rec["groups"]["compared"]}
+    wend = {v["name"]: v for v in g[("site", "Wendlecombe")]["verdicts"]}
+    assert wend["min_recall"]["verdict"] == "fails"
+    assert (out / "recheck.pdf").read_bytes()[:5] == b"%PDF-"
+    md = (out / "recheck.md").read_text(encoding="utf-8")
+    assert md == recheck_markdown(rec)
+    assert rec["integrity"]["sha256"] in md and "not itself a medical device" in md
+
+
+def test_cli_and_app_code_path_give_the_same_recheck_record(q2_run):
+    # the app's Recheck page calls recheck() then build_recheck_record() on the loaded record
+    res, out = q2_run
+    cli = load_recheck(out / "recheck.json")
+    decision = load_record(out / "decision.json")
+    core = build_recheck_record(recheck(decision, demo_path("hospital_q2"), as_of=AS_OF,
+                                        n_replicates=int(REPS), seed=0))
+    assert recheck_without_timestamps(core) == recheck_without_timestamps(cli)
+
+
+def test_recheck_on_its_own_data_exits_by_its_verdicts(decision):
+    # the approval data themselves: the overall recall rule holds again
+    res = run(["recheck", str(demo_path("hospital_q1")), "--record",
+               str(decision / "decision.json"), "--as-of", AS_OF,
+               "--out", str(decision / "same.json")])
+    rec = json.loads((decision / "same.json").read_text(encoding="utf-8"))
+    rules = {v["name"]: v["verdict"] for v in rec["rules"]}
+    assert rules == {"min_recall": "holds", "max_flagged_per_period": "holds"}
+    assert res.returncode == (0 if rec["overall_verdict"] == "holds" else 1)
+
+
+def test_bad_input_and_edited_record_exit_2(decision, tmp_path):
+    res = run(["recheck", str(demo_path("hospital_q2")), "--record",
+               str(decision / "decision.json"), "--score", "no_such_column", "--as-of", AS_OF])
+    assert res.returncode == 2 and "no_such_column" in res.stderr
+    assert len(res.stderr.strip().splitlines()) == 1
+    rec = json.loads((decision / "decision.json").read_text(encoding="utf-8"))
+    rec["threshold"] = 0.5
+    bad = tmp_path / "edited.json"
+    bad.write_text(json.dumps(rec), encoding="utf-8")
+    res = run(["recheck", str(demo_path("hospital_q2")), "--record", str(bad), "--as-of", AS_OF])
+    assert res.returncode == 2 and "threshold" in res.stderr and "refused" in res.stderr
+
+
+def test_parser_registers_recheck():
+    args = build_parser().parse_args(["recheck", "new.csv", "--record", "d.json", "--live",
+                                      "--as-of", "2025-01-01"])
+    assert args.live and args.as_of == "2025-01-01" and args.func.__name__ == "run_recheck"
+
+
+def test_module_entry_point(decision):
+    res = subprocess.run([sys.executable, "-m", "core", "recheck", "--help"], capture_output=True,
+                         text=True, timeout=120, cwd=ROOT)
+    assert res.returncode == 0 and "--as-of" in res.stdout and "--live" in res.stdout
