@@ -115,6 +115,21 @@ def wait_idle(page, timeout: float = 60_000) -> None:
         }""", timeout=timeout)
 
 
+def wait_text(page, text: str, timeout: float = 120_000) -> None:
+    """Wait until the main area shows ``text`` (the server has drawn it), then until idle."""
+    page.wait_for_function(
+        "t => document.querySelector('[data-testid=\"stMain\"]')?.innerText.includes(t)",
+        arg=text, timeout=timeout)
+    wait_idle(page, timeout)
+
+
+def open_page(page, link: str, text: str) -> None:
+    """Click a navigation link and wait for the new page's content, not just for idleness
+    (right after the click the previous page may still report that it is idle)."""
+    page.get_by_role("link", name=link).click()
+    wait_text(page, text)
+
+
 def screenshot(page, name: str) -> Path:
     ARTIFACTS.mkdir(exist_ok=True)
     path = ARTIFACTS / f"{name}.png"

@@ -13,7 +13,7 @@ import pytest
 
 from app import format as fmt
 from core.intake import load_demo
-from tests.browser import browser, require_browser, running_app, screenshot, wait_idle
+from tests.browser import browser, open_page, require_browser, running_app, screenshot, wait_idle, wait_text
 
 pytestmark = pytest.mark.browser
 
@@ -66,9 +66,7 @@ def test_point_moves_by_keyboard_mouse_and_click_and_survives_page_switches(app_
         assert "Corvane Health" in page.locator('[data-testid="stSidebar"]').inner_text()
         screenshot(page, "01-scores-on-open")
 
-        page.get_by_role("link", name="Trade-offs").click()
-        page.wait_for_selector('[data-testid="stSlider"]')
-        wait_idle(page)
+        open_page(page, "Trade-offs", "Confusion matrix at this point")
         k0 = slider_value(page)
         check_tiles(page, curve, k0)
         screenshot(page, "02-tradeoffs")
@@ -117,22 +115,14 @@ def test_point_moves_by_keyboard_mouse_and_click_and_survives_page_switches(app_
         screenshot(page, "04-after-pr-click")
 
         # the point is kept across pages
-        page.get_by_role("link", name="Decide").click()
-        wait_idle(page)
+        open_page(page, "Decide", "Recommended operating point")
+        wait_text(page, "Alternatives and baselines")
         screenshot(page, "05-decide")
-        assert "Recommended operating point" in page.locator('[data-testid="stMain"]').inner_text()
-        page.get_by_role("link", name="Evidence").click()
-        page.wait_for_function(
-            """() => document.querySelector('[data-testid="stMain"]')?.innerText.includes('Calibration')""",
-            timeout=120_000)
-        wait_idle(page)
+        open_page(page, "Evidence", "Expected calibration error")
         main = page.locator('[data-testid="stMain"]').inner_text()
         assert "Every number at the point, with its interval" in main and "Subgroups and fairness" in main
         screenshot(page, "06-evidence")
-        page.get_by_role("link", name="Scores").click()
-        wait_idle(page)
-        page.get_by_role("link", name="Trade-offs").click()
-        page.wait_for_selector('[data-testid="stSlider"]')
-        wait_idle(page)
+        open_page(page, "Scores", "Summary:")
+        open_page(page, "Trade-offs", "Confusion matrix at this point")
         assert slider_value(page) == target
         check_tiles(page, curve, target)
