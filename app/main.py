@@ -39,6 +39,7 @@ PAGES = [
     st.Page("views/decide.py", title="Decide", icon=":material/gavel:", url_path="decide"),
     st.Page("views/evidence.py", title="Evidence", icon=":material/verified:", url_path="evidence"),
     st.Page("views/memo.py", title="Memo", icon=":material/description:", url_path="memo"),
+    st.Page("views/recheck.py", title="Recheck", icon=":material/update:", url_path="recheck"),
 ]
 
 page = st.navigation(PAGES, position="sidebar")

@@ -112,3 +112,29 @@ def test_module_entry_point(decision):
     res = subprocess.run([sys.executable, "-m", "core", "recheck", "--help"], capture_output=True,
                          text=True, timeout=120, cwd=ROOT)
     assert res.returncode == 0 and "--as-of" in res.stdout and "--live" in res.stdout
+
+
+def test_recheck_page_gives_the_cli_recheck_record(q2_run):
+    # the app's Recheck page on the record of `fulcrum pick` and the demo's second quarter
+    import datetime as dt
+
+    from streamlit.testing.v1 import AppTest
+
+    res, out = q2_run
+    cli = load_recheck(out / "recheck.json")
+    at = AppTest.from_file(str(ROOT / "app" / "main.py"), default_timeout=300)
+    at.session_state["fulcrum_memo_record"] = load_record(out / "decision.json")
+    at.run()
+    at.switch_page("views/recheck.py").run()
+    assert not at.exception, at.exception
+    at.date_input(key="recheck_as_of").set_value(dt.date(2025, 9, 30)).run()
+    at.number_input(key="recheck_reps").set_value(int(REPS)).run()
+    assert not at.exception, at.exception
+    page = at.session_state["fulcrum_recheck_record"]
+    assert recheck_without_timestamps(page) == recheck_without_timestamps(cli)
+    shown = " ".join(e.value for e in at.error)
+    assert "recall at site Wendlecombe fails" in shown
+    assert any("not itself a medical device" in i.value for i in at.info)
+    # a rerun keeps the record's time (no new record for the same inputs)
+    at.run()
+    assert at.session_state["fulcrum_recheck_record"] == page

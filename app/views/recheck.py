@@ -1,0 +1,212 @@
+"""Recheck: does an approved threshold still hold on new validation scores?
+
+The page reads a decision record (uploaded, pasted, or the one built on the
+Memo page) and new labelled scores (the demo's second quarter, or an upload
+kept in this session's memory), then calls the same core functions as
+``fulcrum recheck`` (:func:`core.recheck.recheck`,
+:func:`core.recheck.build_recheck_record`), so their recheck records agree
+but for the time. No statistics live here.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+
+import pandas as pd
+import streamlit as st
+
+from app import format as fmt
+from core import cautions
+from core.errors import InputError
+from core.intake import demo_path
+from core.recheck import build_recheck_record, dumps_recheck, recheck
+from core.recheck_memo import recheck_markdown, rule_line
+from core.record import dumps_record, loads_record
+
+K = "recheck_"
+MEMO_RECORD = "fulcrum_memo_record"        # the record built on the Memo page
+RESULT = "fulcrum_recheck_result"          # (inputs key, RecheckResult)
+RECORD = "fulcrum_recheck_record"          # the sealed recheck record shown (JSON-safe dict)
+CREATED = "fulcrum_recheck_created"        # inputs key -> created_utc, so a rerun keeps the time
+PDF = "fulcrum_recheck_pdf"                # (recheck sha256, PDF bytes)
+DEMO_Q2 = "Demo: hospital, second quarter"
+MEMO_SOURCE = "The record built on the Memo page"
+UPLOAD_SOURCE = "Upload a decision record (JSON)"
+
+
+def _decision_record():
+    """The chosen decision record (checked, integrity included) or None, with a message."""
+    ss = st.session_state
+    choices = [UPLOAD_SOURCE] + ([MEMO_SOURCE] if ss.get(MEMO_RECORD) else [])
+    src = st.radio("Decision record", choices, key=K + "record_source", horizontal=True,
+                   index=len(choices) - 1)
+    if src == MEMO_SOURCE:
+        try:
+            return loads_record(dumps_record(ss[MEMO_RECORD]), source="from the Memo page")
+        except InputError as exc:
+            st.error(str(exc))
+            return None
+    up = st.file_uploader("Decision record (JSON)", type=["json"], key=K + "record_file")
+    if up is None:
+        st.info("Upload the decision record of the approved threshold, or build one on the Memo "
+                "page.")
+        return None
+    try:
+        return loads_record(up.getvalue(), source=up.name)
+    except InputError as exc:
+        st.error(str(exc))
+        return None
+
+
+def _new_data():
+    """(source for core.recheck, label, identity) of the new scores."""
+    from core.reading import read_table
+
+    src = st.radio("New scores", [DEMO_Q2, "Upload a file"], key=K + "data_source",
+                   horizontal=True)
+    if src == DEMO_Q2:
+        p = demo_path("hospital_q2")
+        return str(p), p.name, ("demo", "hospital_q2")
+    up = st.file_uploader("New labelled scores (CSV, TSV, Parquet, Excel)", key=K + "data_file")
+    if up is None:
+        return None, None, None
+    data = up.getvalue()
+    try:
+        raw = read_table(data, file_name=up.name)  # in memory only, never written to disk
+    except InputError as exc:
+        st.error(str(exc))
+        return None, None, None
+    import hashlib
+
+    return raw, up.name, ("upload", up.name, hashlib.sha256(data).hexdigest())
+
+
+def _overrides(record) -> dict:
+    m = record["data"]["mapping"]
+    with st.expander("Columns renamed since approval? (blank keeps the record's mapping)"):
+        c1, c2, c3 = st.columns(3)
+        score = c1.text_input(f"Score column (record: {m['score']})", key=K + "score").strip()
+        label = c2.text_input(f"Label column (record: {m['label']})", key=K + "label").strip()
+        pos = c3.text_input(f"Event value (record: {m['positive_label']})",
+                            key=K + "positive").strip()
+    over = {}
+    if score:
+        over["score"] = score
+    if label:
+        over["label"] = label
+    if pos:
+        over["positive_label"] = pos
+    return over
+
+
+def _settings(record):
+    an = record.get("analysis") or {}
+    c1, c2, c3, c4 = st.columns(4)
+    as_of = c1.date_input("As of (label maturity)", value=_dt.date.today(), key=K + "as_of")
+    live = c2.checkbox("Collected while the threshold was live", key=K + "live",
+                       help="Flagged cases were acted on, which changes their outcomes.")
+    reps = c3.number_input("Bootstrap replicates (subgroups)", min_value=50, step=100,
+                           value=int(an.get("n_replicates", 2000)), key=K + "reps")
+    seed = c4.number_input("Seed", min_value=0, step=1, value=int(an.get("seed", 0)),
+                           key=K + "seed")
+    return as_of, bool(live), int(reps), int(seed)
+
+
+def _run(record, source, ident, as_of, live, over, reps, seed):
+    ss = st.session_state
+    key = (record["integrity"]["sha256"], ident, str(as_of), live, tuple(sorted(over.items())),
+           reps, seed)
+    got = ss.get(RESULT)
+    if got is not None and got[0] == key:
+        return got[1]
+    with st.spinner("Rechecking…"):
+        result = recheck(record, source, as_of=str(as_of), live=live, mapping_override=over,
+                         n_replicates=reps, seed=seed)
+    ss[RESULT] = (key, result)
+    created = ss.setdefault(CREATED, {})
+    rec = build_recheck_record(result, created_utc=created.get(key))
+    created[key] = rec["created_utc"]
+    ss[RECORD] = rec
+    return result
+
+
+def _build_pdf() -> None:
+    from core.recheck_memo import recheck_pdf
+
+    rec = st.session_state.get(RECORD)
+    if rec is not None:
+        st.session_state[PDF] = (rec["integrity"]["sha256"], recheck_pdf(rec))
+
+
+def _show(rec: dict) -> None:
+    word = rec["overall_verdict"]
+    box = {"holds": st.success, "fails": st.error}.get(word, st.warning)
+    box(f"**{rec['summary']}** — overall: {word}")
+    st.caption(rec["maturity"]["statement"])
+    if rec.get("model_effect"):
+        st.warning(rec["model_effect"])
+    for s in rec["statements"][1:]:
+        if s != rec.get("model_effect"):
+            st.warning(s)
+    st.subheader("Rules at the approved threshold")
+    for v in rec["rules"]:
+        st.markdown(f"- {rule_line(v)}  \n  {v['reason']}")
+    st.subheader("Subgroups")
+    rows = [{"group": f"{g['column']} = {g['group']}", "rule": v["label"],
+             "now": fmt.pct(v["value"]), "lower bound": fmt.pct(v["lower"]),
+             "upper bound": fmt.pct(v["upper"]), "verdict": v["verdict"]}
+            for g in rec["groups"]["compared"] for v in g["verdicts"]]
+    if rows:
+        st.dataframe(pd.DataFrame(rows), hide_index=True, use_container_width=True)
+    st.caption("New groups: " + (", ".join(rec["groups"]["new"]) or "none") + ". Vanished groups: "
+               + (", ".join(rec["groups"]["vanished"]) or "none") + ".")
+    for n in rec["groups"]["notes"]:
+        st.caption(n)
+    st.subheader("Old against new")
+    st.dataframe(pd.DataFrame([{
+        "metric": c["label"], "at approval": fmt.pct(c["reference"]),
+        "now": fmt.pct(c["new"]),
+        "difference": "—" if c["difference"] is None else f"{100 * c['difference']:+.2f} pts",
+        "95 % interval": "—" if c["low"] is None else
+        f"{100 * c['low']:+.2f} to {100 * c['high']:+.2f} pts",
+        "changed": "yes" if c["changed"] else "no"} for c in rec["comparison"]["metrics"]]),
+        hide_index=True, use_container_width=True)
+    st.caption(rec["comparison"]["method"])
+    st.subheader("Drift of the scores")
+    for s in rec["drift"]["statements"]:
+        st.markdown(f"- {s}")
+    st.subheader("Calibration drift")
+    st.markdown(rec["calibration_drift"]["statement"])
+    st.subheader("What the same policy would choose now")
+    st.markdown(rec["policy_now"]["policy_note"] + " " + rec["policy_now"]["statement"])
+    st.subheader("Exports")
+    stem = "recheck"
+    d1, d2, d3 = st.columns(3)
+    d1.download_button("Recheck record (JSON)", dumps_recheck(rec), file_name=f"{stem}.json",
+                       mime="application/json", key=K + "dl_json")
+    d2.download_button("Recheck memo (Markdown)", recheck_markdown(rec), file_name=f"{stem}.md",
+                       mime="text/markdown", key=K + "dl_md")
+    built = st.session_state.get(PDF)
+    if built is not None and built[0] == rec["integrity"]["sha256"]:
+        d3.download_button("Recheck memo (PDF)", built[1], file_name=f"{stem}.pdf",
+                           mime="application/pdf", key=K + "dl_pdf")
+    else:
+        d3.button("Build the PDF memo", key=K + "build_pdf", on_click=_build_pdf)
+    st.caption(f"Decision record {rec['decision_record']['sha256']}; recheck record "
+               f"{rec['integrity']['sha256']}.")
+
+
+st.title("Recheck")
+st.caption("Does the approved threshold still meet its rules on new labelled scores? What "
+           "moved, and what would the same policy choose now?")
+st.info(cautions.FULL)
+record = _decision_record()
+source, name, ident = _new_data() if record is not None else (None, None, None)
+if record is not None and source is not None:
+    over = _overrides(record)
+    as_of, live, reps, seed = _settings(record)
+    try:
+        _run(record, source, ident, as_of, live, over, reps, seed)
+        _show(st.session_state[RECORD])
+    except InputError as exc:
+        st.error(str(exc))
