@@ -407,11 +407,19 @@ def _choice_now(record, ds, policy, t) -> dict:
                            f"{rp.prevalence:.4g} included) applied to the new data."),
            "approval": approval, "approved_threshold_now": _point_now(at_approved, rp.period),
            "chosen_now": None if ch.point is None else _point_now(ch.point, rp.period),
+           "unconstrained_now": None if ch.unconstrained is None
+           else _point_now(ch.unconstrained, rp.period),
            "explanation": ch.explanation, "infeasible": list(ch.infeasible)}
-    if ch.point is not None:
-        a, n = at_approved, ch.point
+    n = ch.point if ch.point is not None else ch.unconstrained
+    out["difference_basis"] = ("the policy's choice now" if ch.point is not None else
+                               "the objective's best point now, ignoring the rules (none meets "
+                               "them all)")
+    if n is not None:
+        a = at_approved
+
         def diff(x, y):
             return None if x is None or y is None else y - x
+
         out["difference"] = json_safe({
             "threshold": diff(t, float(n.threshold)),
             "flagged": diff(a.counts["tp"] + a.counts["fp"], n.counts["tp"] + n.counts["fp"]),
@@ -421,15 +429,19 @@ def _choice_now(record, ds, policy, t) -> dict:
             "flagged_per_period": diff(a.flagged_per_period, n.flagged_per_period),
             "same_point": bool(a.index == n.index),
         })
-        if a.index == n.index:
-            out["statement"] = "The same policy picks the approved point on the new data."
-        else:
-            out["statement"] = (f"On the new data the same policy would choose threshold "
-                                f"{float(n.threshold)!r} instead of {t!r}.")
     else:
         out["difference"] = None
+    if ch.point is not None and ch.point.index == at_approved.index:
+        out["statement"] = "The same policy picks the approved point on the new data."
+    elif ch.point is not None:
+        out["statement"] = (f"On the new data the same policy would choose threshold "
+                            f"{float(ch.point.threshold)!r} instead of {t!r}.")
+    else:
         out["statement"] = ("On the new data no threshold meets every rule of the policy: "
                             + " ".join(ch.infeasible))
+        if ch.unconstrained is not None:
+            out["statement"] += (f" Ignoring the rules, its objective would pick threshold "
+                                 f"{float(ch.unconstrained.threshold)!r} (approved: {t!r}).")
     return json_safe(out)
 
 

@@ -186,9 +186,11 @@ def recheck_blocks(rec: dict) -> list[Block]:
     rows = [row("At approval (approval data)", now["approval"]),
             row("Approved threshold, new data", now["approved_threshold_now"]),
             row("Chosen now, new data", now.get("chosen_now"))]
+    if now.get("chosen_now") is None and now.get("unconstrained_now"):
+        rows.append(row("Objective's best now, ignoring the rules", now["unconstrained_now"]))
     diff = now.get("difference")
     if diff:
-        rows.append(("Difference (chosen - approved, new data)", fmt_num(diff["threshold"], 4),
+        rows.append((f"Difference ({now.get('difference_basis')} - approved, new data)", fmt_num(diff["threshold"], 4),
                      fmt_count(diff["flagged"]), "", fmt_num(diff["cost_per_period"], 1),
                      fmt_num(diff["flagged_per_period"], 1)))
     period = now["approved_threshold_now"].get("period") or "period"

@@ -209,3 +209,36 @@ def test_a_loaded_dataset_is_accepted(record, result):
     r = recheck(record, ds, as_of=AS_OF, n_replicates=REPS)
     assert recheck_without_timestamps(build_recheck_record(r)) == \
         recheck_without_timestamps(build_recheck_record(result))
+
+
+def test_recheck_memo(result, q2):
+    from core import cautions
+    from core.recheck_memo import recheck_blocks, recheck_markdown, recheck_pdf
+
+    rec = build_recheck_record(result)
+    blocks = recheck_blocks(rec)
+    strong = [b for b in blocks if b.kind == "strong"]
+    assert strong and strong[0].text.startswith(result.summary)  # the summary comes first
+    assert blocks.index(strong[0]) < min(i for i, b in enumerate(blocks) if b.kind == "h1")
+    texts = [b.text for b in blocks if b.kind == "caution"]
+    assert cautions.FULL in texts and cautions.LABEL_SHIFT in texts
+    md = recheck_markdown(rec)
+    assert "Wendlecombe" in md and rec["integrity"]["sha256"] in md
+    assert rec["decision_record"]["sha256"] in md
+    assert "<" not in md.replace("&lt;", "")  # no raw HTML gets through
+    for ident in list(q2["encounter_id"][:50]) + list(q2["patient_id"][:50]):
+        assert ident not in md
+    pdf = recheck_pdf(rec)
+    assert pdf[:5] == b"%PDF-" and len(pdf) > 5000
+
+
+def test_policy_now_when_no_point_meets_every_rule(result):
+    now = result.now
+    # on Q2 recall 0.80 and at most 320 flags a day cannot both be met
+    assert now["chosen_now"] is None and now["infeasible"]
+    assert now["unconstrained_now"] is not None
+    d = now["difference"]
+    a, u = now["approved_threshold_now"], now["unconstrained_now"]
+    assert d["threshold"] == pytest.approx(u["threshold"] - a["threshold"])
+    assert d["flagged"] == (u["counts"]["tp"] + u["counts"]["fp"]) - (a["counts"]["tp"]
+                                                                      + a["counts"]["fp"])
