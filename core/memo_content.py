@@ -28,6 +28,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
+from core import formatting as _fmt
 from core import cautions as _cautions
 from core.memo_fields import FIELDS, LABELS, NESTED
 from core.metrics import METRIC_LABELS
@@ -35,7 +36,7 @@ from core.metrics import METRIC_LABELS
 __all__ = ["Block", "memo_blocks", "memo_title", "fmt_pct", "fmt_num", "fmt_count",
            "fmt_threshold", "fmt_interval", "fmt_ci", "NOT_STATED"]
 
-DASH = "—"
+DASH = _fmt.DASH
 NOT_STATED = "not stated"
 
 
@@ -59,65 +60,31 @@ class Block:
 
 # --------------------------------------------------------------------------- formatting
 
-def _bad(x) -> bool:
-    return x is None or (isinstance(x, float) and math.isnan(x))
-
-
-def _float(x):
-    if x == "inf":
-        return math.inf
-    if x == "-inf":
-        return -math.inf
-    return float(x)
+_bad = _fmt.is_undefined
+_float = _fmt.as_float
 
 
 def fmt_pct(x, digits: int = 1) -> str:
     """0.1234 -> "12.3 %"; undefined -> "—"."""
-    if _bad(x):
-        return DASH
-    return f"{100.0 * float(x):,.{digits}f} %"
+    return _fmt.pct(x, digits)
 
 
 def fmt_num(x, digits: int = 2) -> str:
     """A plain number with thousands separators; infinities as ∞."""
-    if _bad(x):
-        return DASH
-    x = _float(x)
-    if math.isinf(x):
-        return "∞" if x > 0 else "−∞"
-    return f"{x:,.{digits}f}"
+    return _fmt.num(x, digits)
 
 
-def fmt_count(x) -> str:
-    """Whole counts as 1,234; weighted ones with one decimal."""
-    if _bad(x):
-        return DASH
-    x = float(x)
-    if abs(x - round(x)) < 1e-9:
-        return f"{int(round(x)):,}"
-    return f"{x:,.1f}"
+fmt_count = _fmt.count
 
 
 def fmt_threshold(t) -> str:
     """A threshold exactly as stored (shortest float64 form); infinities spelled out."""
-    if _bad(t):
-        return DASH
-    t = _float(t)
-    if math.isinf(t):
-        return "+inf (flag none)" if t > 0 else "-inf (flag none)"
-    return repr(t)
+    return _fmt.threshold(t, infinity="inf")
 
 
 def fmt_interval(iv: dict) -> str:
     """(low, high] or [low, high) of a threshold interval."""
-    def end(v):
-        v = _float(v)
-        if math.isinf(v):
-            return "+inf" if v > 0 else "-inf"
-        return repr(v)
-
-    lo, hi = end(iv["low"]), end(iv["high"])
-    return f"({lo}, {hi}]" if iv["closed"] == "high" else f"[{lo}, {hi})"
+    return _fmt.interval(iv["low"], iv["high"], iv["closed"], infinity="inf")
 
 
 def fmt_ci(entry: dict, writer=fmt_pct) -> str:
