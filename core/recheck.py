@@ -230,8 +230,9 @@ def _load(record, source, mapping):
         cols = ", ".join(f"{role} {col!r}" for role, col in
                          (("score", mapping.score), ("label", mapping.label)) if col)
         raise InputError("new data", f"{exc} -- the decision record maps {cols} (event value "
-                         f"{mapping.positive_label!r}); if the columns were renamed, give the new "
-                         "names (a mapping override)") from None
+                         f"{mapping.positive_label!r}); if columns were renamed or the event value "
+                         "changed, give the new ones (a mapping override: --score, --label, "
+                         "--positive on the command line)") from None
 
 
 def _check_fit(record, ds) -> None:

@@ -242,3 +242,15 @@ def test_policy_now_when_no_point_meets_every_rule(result):
     assert d["threshold"] == pytest.approx(u["threshold"] - a["threshold"])
     assert d["flagged"] == (u["counts"]["tp"] + u["counts"]["fp"]) - (a["counts"]["tp"]
                                                                       + a["counts"]["fp"])
+
+
+def test_new_and_vanished_groups_are_listed(record, q2):
+    renamed = q2.assign(site=q2["site"].replace({"Wendlecombe": "Thornby"}))
+    r = recheck(record, _bytes(renamed), as_of=AS_OF, n_replicates=REPS)
+    assert r.new_groups == ("site = Thornby",)
+    assert r.vanished_groups == ("site = Wendlecombe",)
+    assert ("site", "Thornby") not in r.group_verdicts  # a new group has no approval to recheck
+    assert {g.group for g in r.groups if g.column == "site"} == {"Orrinford", "Pellbrook"}
+    rec = build_recheck_record(r)
+    assert rec["groups"]["new"] == ["site = Thornby"]
+    assert rec["groups"]["vanished"] == ["site = Wendlecombe"]
