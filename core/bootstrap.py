@@ -940,6 +940,35 @@ def _cost_per_case(tp, fp, P, N, cost_cum, cols, costs, pi):
                 + float(costs.get("true_negative", 0.0)) * (1.0 - pi) * (1.0 - fpr))
 
 
+def _record_points(ch, tp, fp, P, N, s, cols, costs, prevalence, at_tp, at_fp, at_cost, at_pi) -> None:
+    """Store one chunk's prevalence, counts and cost at the fixed thresholds' columns."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        pi = np.full(ch.n, float(prevalence)) if prevalence is not None else P / (P + N)
+    at_pi[s] = pi
+    if len(cols):
+        t, f, _, _ = counts_at(tp, fp, cols)
+        at_tp[s], at_fp[s] = t, f
+        if at_cost is not None:
+            at_cost[s] = _cost_per_case(t, f, P, N, ch.cumulative_cost(), cols, costs, pi[:, None])
+
+
+def _points_by_threshold(ths, at_tp, at_fp, at_cost, at_pi, Ps, Ns, cases_per_period) -> dict:
+    """Replicate counts (and cost, flags per period) at each fixed threshold."""
+    at = {}
+    for j, t in enumerate(ths):
+        d = {"tp": at_tp[:, j], "fp": at_fp[:, j], "fn": Ps - at_tp[:, j], "tn": Ns - at_fp[:, j],
+             "prevalence": at_pi}
+        if at_cost is not None:
+            d["cost"] = at_cost[:, j]
+        if cases_per_period is not None:
+            with np.errstate(invalid="ignore", divide="ignore"):
+                tpr = d["tp"] / Ps
+                fpr = d["fp"] / Ns
+            d["flagged_per_period"] = (at_pi * tpr + (1.0 - at_pi) * fpr) * float(cases_per_period)
+        at[t] = d
+    return at
+
+
 def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
               design: str = "cohort", thresholds=(), prevalence: float | None = None,
               costs: dict | None = None, cases_per_period: float | None = None,
@@ -1013,29 +1042,10 @@ def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
         ap[s] = _average_precision_ties(tp, fp, ch.events, tie)
         pb[s] = precision_at_recall(tp, fp, rg)
         tb[s] = tpr_at_fpr(tp, fp, fg)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            pi = np.full(ch.n, float(prevalence)) if prevalence is not None else P / (P + N)
-        at_pi[s] = pi
-        if k:
-            t, f, _, _ = counts_at(tp, fp, cols)
-            at_tp[s], at_fp[s] = t, f
-            if at_cost is not None:
-                at_cost[s] = _cost_per_case(t, f, P, N, ch.cumulative_cost(), cols, costs,
-                                            pi[:, None])
+        _record_points(ch, tp, fp, P, N, s, cols, costs, prevalence, at_tp, at_fp, at_cost, at_pi)
         for c in collectors:
             c.update(ch, tp, fp)
-    at = {}
-    for j, t in enumerate(ths):
-        d = {"tp": at_tp[:, j], "fp": at_fp[:, j], "fn": Ps - at_tp[:, j], "tn": Ns - at_fp[:, j],
-             "prevalence": at_pi}
-        if at_cost is not None:
-            d["cost"] = at_cost[:, j]
-        if cases_per_period is not None:
-            with np.errstate(invalid="ignore", divide="ignore"):
-                tpr = d["tp"] / Ps
-                fpr = d["fp"] / Ns
-            d["flagged_per_period"] = (at_pi * tpr + (1.0 - at_pi) * fpr) * float(cases_per_period)
-        at[t] = d
+    at = _points_by_threshold(ths, at_tp, at_fp, at_cost, at_pi, Ps, Ns, cases_per_period)
     notes = []
     if not cells.exact:
         notes.append("approximate: " + cells.describe())

@@ -66,9 +66,9 @@ from core.bootstrap import (
     BootstrapResult,
     EventCells,
     ReplicateChunk,
-    _cost_per_case,
+    _points_by_threshold,
+    _record_points,
     average_precision,
-    counts_at,
     event_cells,
     percentile_interval,
     precision_at_recall,
@@ -506,29 +506,10 @@ def cluster_bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int
         ap[s] = average_precision(tp, fp)
         pb[s] = precision_at_recall(tp, fp, rg)
         tb[s] = tpr_at_fpr(tp, fp, fg)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            pi = np.full(ch.n, float(prevalence)) if prevalence is not None else P / (P + N)
-        at_pi[s] = pi
-        if k:
-            t, f, _, _ = counts_at(tp, fp, cols)
-            at_tp[s], at_fp[s] = t, f
-            if at_cost is not None:
-                at_cost[s] = _cost_per_case(t, f, P, N, ch.cumulative_cost(), cols, costs,
-                                            pi[:, None])
+        _record_points(ch, tp, fp, P, N, s, cols, costs, prevalence, at_tp, at_fp, at_cost, at_pi)
         for c in collectors:
             c.update(ch, tp, fp)
-    at = {}
-    for j, t in enumerate(ths):
-        d = {"tp": at_tp[:, j], "fp": at_fp[:, j], "fn": Ps - at_tp[:, j], "tn": Ns - at_fp[:, j],
-             "prevalence": at_pi}
-        if at_cost is not None:
-            d["cost"] = at_cost[:, j]
-        if cases_per_period is not None:
-            with np.errstate(invalid="ignore", divide="ignore"):
-                tpr = d["tp"] / Ps
-                fpr = d["fp"] / Ns
-            d["flagged_per_period"] = (at_pi * tpr + (1.0 - at_pi) * fpr) * float(cases_per_period)
-        at[t] = d
+    at = _points_by_threshold(ths, at_tp, at_fp, at_cost, at_pi, Ps, Ns, cases_per_period)
     return ClusterBootstrapResult(
         cells=cells, n_replicates=n_rep, seed=int(seed), design="cohort", roc_auc=auc,
         average_precision=ap, recall_grid=rg, precision_band=pb, fpr_grid=fg, tpr_band=tb,

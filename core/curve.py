@@ -30,7 +30,7 @@ import numpy as np
 import pandas as pd
 
 from core.errors import InputError
-from core.metrics import METRIC_NAMES, confusion_metrics
+from core.metrics import confusion_metrics
 
 __all__ = ["Curve", "OperatingPoint", "sweep"]
 

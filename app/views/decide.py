@@ -8,7 +8,7 @@ import streamlit as st
 
 from app import charts, policy_form, state
 from app import format as fmt
-from app.widgets import caution_line, few_events_note, metric_tiles
+from app.widgets import few_events_note, metric_tiles
 from core import cautions
 from core.choose import choose, cost_by_threshold, evaluate
 from core.policy import RULE_LABELS, PolicyError, dumps_policy
