@@ -287,11 +287,35 @@ def _record_policy(record: dict):
     return Policy.from_dict(d)
 
 
+def _subset(ds, mask):
+    """The cases (rows, or count-table lines) where ``mask`` holds."""
+    if ds.kind == "rows":
+        return ds.subset(mask)
+    from core.dataset import Dataset
+
+    m = np.asarray(mask, dtype=bool)
+
+    def take(a):
+        return None if a is None else np.asarray(a)[m]
+
+    return Dataset.from_count_table(
+        ds.y_score[m], ds.events[m], ds.non_events[m], event_cost=take(ds.event_cost),
+        events_sq=take(ds.events_sq), non_events_sq=take(ds.non_events_sq),
+        higher_is_riskier=ds.higher_is_riskier, file_name=ds.file_name, mapping=ds.mapping,
+        groups={k: v[m] for k, v in ds.groups.items()})
+
+
 def _counts_at(ds, t: float) -> tuple[dict, float | None, float | None]:
     """Counts at threshold t and, with sampling weights, Kish's effective class sizes."""
     c = ds.curve()
     p = c.at(t)
     n1 = n0 = None
+    if ds.kind == "counts" and ds.events_sq is not None and ds.non_events_sq is not None:
+        e, ne = np.asarray(ds.events, dtype=np.float64), np.asarray(ds.non_events, dtype=np.float64)
+        n1 = float(_iv.effective_size_from_sums(e.sum(), np.sum(ds.events_sq))) if e.sum() > 0 \
+            else 0.0
+        n0 = float(_iv.effective_size_from_sums(ne.sum(), np.sum(ds.non_events_sq))) \
+            if ne.sum() > 0 else 0.0
     if ds.kind == "rows" and ds.weight_kind == "sampling" and ds.sample_weight is not None:
         w = np.asarray(ds.sample_weight, dtype=np.float64)
         y = np.asarray(ds.y_true, dtype=bool)
@@ -489,7 +513,7 @@ def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = Fal
     mat = dataset_maturity(ds, as_of, horizon_days=horizon)
     if mat.n_mature == 0:
         raise InputError("as_of", "no new case is mature: " + mat.statement)
-    mature = ds if mat.n_mature == mat.n_cases else ds.subset(mat.mask)
+    mature = ds if mat.n_mature == mat.n_cases else _subset(ds, mat.mask)
     t = _f(record["threshold"])
     rp = record["policy"]["resolved"]
     conf_v = _resolved_value(rp, "rules", "confidence")
@@ -521,7 +545,7 @@ def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = Fal
             if key not in ref_by:
                 new_only.append(f"{col} = {g}")
                 continue
-            sub = mature.subset(vals == g)
+            sub = _subset(mature, vals == g)
             gv, gc = _judge(sub, t, rules, margins=None, overall=False, **kw)
             r = ref_by[key]
             groups.append(GroupRecheck(column=col, group=g, verdicts=gv, counts=gc,

@@ -254,3 +254,31 @@ def test_new_and_vanished_groups_are_listed(record, q2):
     rec = build_recheck_record(r)
     assert rec["groups"]["new"] == ["site = Thornby"]
     assert rec["groups"]["vanished"] == ["site = Wendlecombe"]
+
+
+def _count_table(name):
+    from core.dataset import Dataset
+
+    d = pd.read_csv(demo_path(name))
+    d["ev"] = (d["deteriorated"] == "yes").astype(float)
+    g = d.groupby(["risk_score", "site"], as_index=False).agg(events=("ev", "sum"), n=("ev", "size"))
+    return Dataset.from_count_table(g["risk_score"], g["events"], g["n"] - g["events"],
+                                    groups={"site": g["site"]})
+
+
+def test_count_tables_give_the_row_verdicts(result):
+    # the same cases as a count table (one GROUP BY): same counts and verdicts per site;
+    # no score times, so label maturity is reported as not checked
+    import dataclasses
+
+    pol = load_policy(POLICY_DIR / "hospital.toml")
+    pol = pol.replace(rules=dataclasses.replace(pol.rules, max_flagged_per_period=None,
+                                                capacity_quantile=None))
+    rec = decide(_count_table("hospital_q1"), pol, n_replicates=REPS)
+    r = recheck(rec, _count_table("hospital_q2"), as_of=AS_OF, n_replicates=REPS)
+    assert not r.maturity.available
+    assert r.counts == result.counts
+    for site in ("Orrinford", "Pellbrook", "Wendlecombe"):
+        a = r.verdict("min_recall", ("site", site))
+        b = result.verdict("min_recall", ("site", site))
+        assert (a.verdict, a.value, a.lower, a.upper) == (b.verdict, b.value, b.lower, b.upper)
