@@ -17,7 +17,7 @@ from pathlib import Path
 
 from core.errors import InputError
 
-__all__ = ["add_recheck", "run_recheck", "recheck_summary_lines", "override_from_args"]
+__all__ = ["add_recheck", "override_from_args", "recheck_summary_lines", "run_recheck"]
 
 _DESCRIPTION = """\
 Recheck an approved threshold on new labelled scores. The decision record's integrity is checked
@@ -128,10 +128,10 @@ def recheck_summary_lines(rec: dict, written=()) -> list[str]:
 
     d = rec["data"]
     out = [f"Recheck: {rec['summary']}  [{rec['overall_verdict'].upper()}]", "",
-           f"Decision record {rec['decision_record']['sha256'][:16]} (threshold "
-           f"{rec['threshold']}, {'>=' if rec['higher_is_riskier'] else '<='}); new data "
-           f"{d.get('file_name') or 'data'}: {d['rows']:,} cases, {d['mature_rows']:,} mature, "
-           f"{d['events']:,.0f} events",
+           (f"Decision record {rec['decision_record']['sha256'][:16]} (threshold "
+            f"{rec['threshold']}, {'>=' if rec['higher_is_riskier'] else '<='}); new data "
+            f"{d.get('file_name') or 'data'}: {d['rows']:,} cases, {d['mature_rows']:,} mature, "
+            f"{d['events']:,.0f} events"),
            rec["maturity"]["statement"]]
     if rec.get("model_effect"):
         out.append("LIVE: " + rec["model_effect"])

@@ -55,19 +55,19 @@ from core.errors import InputError
 from core.record import RecordError, canonical_json, digest, seal  # noqa: F401 (canonical_json re-exported)
 
 __all__ = [
-    "SCHEMA",
     "COMPARED_METRICS",
-    "MetricComparison",
+    "SCHEMA",
     "GroupRecheck",
+    "MetricComparison",
     "RecheckResult",
-    "recheck",
     "build_recheck_record",
     "dumps_recheck",
-    "write_recheck",
-    "loads_recheck",
-    "load_recheck",
     "exit_code",
+    "load_recheck",
+    "loads_recheck",
+    "recheck",
     "recheck_without_timestamps",
+    "write_recheck",
 ]
 
 SCHEMA = "fulcrum.recheck/1"
@@ -528,8 +528,8 @@ def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = Fal
     quantile = _resolved_value(rp, "rules", "capacity_quantile")
     margins = {r["name"]: r.get("margin") for r in (record.get("choice") or {}).get("rules", [])
                if r.get("margin") is not None}
-    kw = dict(confidence=confidence, prevalence=prevalence, cpp=cpp, period=period,
-              quantile=quantile)
+    kw = {"confidence": confidence, "prevalence": prevalence, "cpp": cpp, "period": period,
+          "quantile": quantile}
     verdicts, counts = _judge(mature, t, rules, margins=margins, **kw)
 
     # subgroups present in both
@@ -606,7 +606,7 @@ def exit_code(result: RecheckResult) -> int:
 # =========================================================================== the recheck record
 
 def _utc_now() -> str:
-    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).strftime("%Y-%m-%dT%H:%M:%SZ")
+    return _dt.datetime.now(_dt.UTC).replace(microsecond=0).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def _data_summary(r: RecheckResult) -> dict:

@@ -19,8 +19,15 @@ from pathlib import Path
 from core import cautions
 from core.memo_content import Block, fmt_count, fmt_num, fmt_pct
 
-__all__ = ["recheck_blocks", "recheck_pdf", "recheck_markdown", "write_recheck_pdf",
-           "write_recheck_markdown", "rule_line", "recheck_title"]
+__all__ = [
+    "recheck_blocks",
+    "recheck_markdown",
+    "recheck_pdf",
+    "recheck_title",
+    "rule_line",
+    "write_recheck_markdown",
+    "write_recheck_pdf",
+]
 
 
 def _is_count_rule(name: str) -> bool:
@@ -136,11 +143,11 @@ def recheck_blocks(rec: dict) -> list[Block]:
     b.append(Block("table", header=("Metric", "At approval (95 % CI)", "Now (95 % CI)",
                                     "Difference (95 % CI)", "Changed"),
                    rows=tuple((c["label"],
-                               f"{_pct(c['reference'])} ({_pct(c['reference_low'])} to "
-                               f"{_pct(c['reference_high'])})",
+                               (f"{_pct(c['reference'])} ({_pct(c['reference_low'])} to "
+                                f"{_pct(c['reference_high'])})"),
                                f"{_pct(c['new'])} ({_pct(c['new_low'])} to {_pct(c['new_high'])})",
-                               f"{_signed_pct(c['difference'])} ({_signed_pct(c['low'])} to "
-                               f"{_signed_pct(c['high'])})", "yes" if c["changed"] else "no")
+                               (f"{_signed_pct(c['difference'])} ({_signed_pct(c['low'])} to "
+                                f"{_signed_pct(c['high'])})"), "yes" if c["changed"] else "no")
                               for c in cmp["metrics"]),
                    widths=(0.26, 0.2, 0.2, 0.22, 0.12)))
     b.append(Block("p", cmp["method"]))
@@ -161,10 +168,10 @@ def recheck_blocks(rec: dict) -> list[Block]:
         b.append(Block("table", header=("Measure", "At approval", "Now (interval)", "Change",
                                         "Verdict"),
                        rows=tuple((m["label"], fmt_num(m["reference"], 2),
-                                   f"{fmt_num(m['new'], 2)} ({fmt_num(m['new_low'], 2)} to "
-                                   f"{fmt_num(m['new_high'], 2)})",
-                                   f"{fmt_num(m['change'], 2)} ({fmt_num(m['change_low'], 2)} to "
-                                   f"{fmt_num(m['change_high'], 2)}, {m['change_kind']})",
+                                   (f"{fmt_num(m['new'], 2)} ({fmt_num(m['new_low'], 2)} to "
+                                    f"{fmt_num(m['new_high'], 2)})"),
+                                   (f"{fmt_num(m['change'], 2)} ({fmt_num(m['change_low'], 2)} "
+                                    f"to {fmt_num(m['change_high'], 2)}, {m['change_kind']})"),
                                    m["verdict"]) for m in cal["measures"]),
                        widths=(0.28, 0.14, 0.22, 0.24, 0.12)))
     b.append(Block("p", cal["statement"]))

@@ -18,9 +18,9 @@ from core.policy import load_policy
 from core.recheck import (
     SCHEMA,
     build_recheck_record,
+    dumps_recheck,
     exit_code,
     loads_recheck,
-    dumps_recheck,
     recheck,
     recheck_without_timestamps,
 )
