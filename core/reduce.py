@@ -703,7 +703,8 @@ drop_missing_scores
         sql = reduction_sql(Relation(clean), score=m.score, label=m.label,
                             positive=checked.event_values, weight=m.weight,
                             case_cost=m.case_cost, groups=m.groups, decimals=d,
-                            higher_is_riskier=m.higher_is_riskier, dialect="duckdb")
+                            higher_is_riskier=m.higher_is_riskier, dialect="duckdb",
+                            score_bound=checked.score_bound)
         present = ["events", "non_events"] + (["event_cost"] if m.case_cost else []) + (
             ["events_sq", "non_events_sq"] if m.weight else [])
         as_double = ", ".join(f"CAST({quote_identifier(c, 'duckdb')} AS DOUBLE) AS "
@@ -714,7 +715,8 @@ drop_missing_scores
         if d is not None and check_rounding:
             rsql = rounding_check_sql(Relation(clean), score=m.score, label=m.label,
                                       positive=checked.event_values, weight=m.weight, decimals=d,
-                                      higher_is_riskier=m.higher_is_riskier, dialect="duckdb")
+                                      higher_is_riskier=m.higher_is_riskier, dialect="duckdb",
+                                      score_bound=checked.score_bound)
             r = engine.query(rsql, stage="measuring the rounding", label=src.label).to_pylist()[0]
             rounding = RoundingEffect(
                 decimals=d, direction="floor" if m.higher_is_riskier else "ceil",
@@ -767,10 +769,20 @@ class _Checked:
     warnings: tuple
     float32: bool
     nums: dict  # column -> _Num
+    score_bound: float | None  # largest |score| counted
 
 
-def _profile_sql(src: _Source, m: Mapping, nums: dict, keep: str, d: int | None) -> str:
-    """One pass: per raw label value, every count the checks need (plus a grand-total row)."""
+_LABEL_LIMIT = 10_000
+
+
+def _profile_sql(src: _Source, m: Mapping, nums: dict, keep: str, d: int | None) -> tuple:
+    """The check pass: per raw label value, every count the checks need.
+
+    Returns ``(per_label, totals)``: the per-label statement (the most
+    frequent values first, at most ``_LABEL_LIMIT`` of them, each row also
+    giving the number of distinct values) and the same aggregates without
+    grouping, needed only when a label column has more values than that.
+    """
     lab = src.col(m.label)
     s = nums[m.score]
     row = quote_identifier(_ROW, "duckdb")
@@ -797,9 +809,32 @@ def _profile_sql(src: _Source, m: Mapping, nums: dict, keep: str, d: int | None)
     for i, g in enumerate(m.groups):
         agg.append(f"count(*) FILTER (WHERE {keep} AND "
                    f"{_missing_sql(src.col(g), src.types[g])}) AS g{i}_missing")
-    return (f"SELECT {lab} AS lab, grouping({lab}) AS total, {', '.join(agg)} "
-            f"FROM {src.numbered} GROUP BY GROUPING SETS (({lab}), ()) "
-            f"ORDER BY total DESC, n_all DESC, first_row LIMIT 10001")
+    agg.append(f"count(*) FILTER (WHERE {keep} AND {_missing_sql(lab, src.types[m.label])}) "
+               f"AS label_missing")
+    aggs = ", ".join(agg)
+    per_label = (f"SELECT {lab} AS lab, {aggs}, count(*) OVER () AS n_labels "
+                 f"FROM {src.numbered} GROUP BY {lab} "
+                 f"ORDER BY n_all DESC, first_row LIMIT {_LABEL_LIMIT}")
+    totals = f"SELECT {aggs} FROM {src.numbered}"
+    return per_label, totals
+
+
+def _combine(per: list) -> dict:
+    """The totals over the label values (counts and sums added, extremes kept)."""
+    out: dict = {}
+    for key in per[0]:
+        if key in ("lab", "n_labels"):
+            continue
+        vals = [r[key] for r in per if r[key] is not None]
+        if key in ("first_row", "s_min"):
+            out[key] = min(vals) if vals else None
+        elif key == "s_max":
+            out[key] = max(vals) if vals else None
+        elif key == "w_sum":
+            out[key] = sum(vals) if vals else None
+        else:
+            out[key] = sum(vals)
+    return out
 
 
 def _check(engine: _Engine, src: _Source, m: Mapping, d: int | None) -> _Checked:
@@ -811,14 +846,17 @@ def _check(engine: _Engine, src: _Source, m: Mapping, d: int | None) -> _Checked
     nums = {c: _num_sql(src, c) for c in (m.score, m.weight, m.case_cost) if c is not None}
     s = nums[m.score]
     keep = f"NOT {s.missing}" if m.drop_missing_scores else "TRUE"
-    prof = engine.query(_profile_sql(src, m, nums, keep, d), stage="checking",
-                        label=src.label).to_pylist()
-    tot, per = prof[0], prof[1:]
+    per_sql, totals_sql = _profile_sql(src, m, nums, keep, d)
+    per = engine.query(per_sql, stage="checking", label=src.label).to_pylist()
+    if not per:
+        raise InputError(None, f"{src.label} has a header but no data rows")
+    if per[0]["n_labels"] > len(per):  # a label column with very many values: count it all
+        tot = engine.query(totals_sql, label=src.label).to_pylist()[0]
+    else:
+        tot = _combine(per)
     rows = _Rows(engine, src, keep)
     warnings: list[IntakeWarning] = []
     n_all = int(tot["n_all"])
-    if n_all == 0:
-        raise InputError(None, f"{src.label} has a header but no data rows")
 
     # ---- score (every row)
     if tot["s_not_number"]:
@@ -844,7 +882,7 @@ def _check(engine: _Engine, src: _Source, m: Mapping, d: int | None) -> _Checked
             f"{n_all - dropped:,} rows", m.score))
 
     # ---- label
-    event_values, matched, merged = _check_label(rows, src, m, per)
+    event_values, matched, merged = _check_label(rows, src, m, per, tot)
     if merged:
         warnings.append(IntakeWarning(
             "label_whitespace",
@@ -930,7 +968,9 @@ def _check(engine: _Engine, src: _Source, m: Mapping, d: int | None) -> _Checked
     _warn_few_events(n_events, m.label, warnings)
     return _Checked(rows_read=n_all, dropped=dropped, dropped_positions=dropped_positions,
                     event_values=event_values, matched=matched, warnings=tuple(warnings),
-                    float32=f32, nums=nums)
+                    float32=f32, nums=nums,
+                    score_bound=None if tot["s_min"] is None else max(abs(float(tot["s_min"])),
+                                                                       abs(float(tot["s_max"]))))
 
 
 def _same(a, b) -> bool:
@@ -938,23 +978,33 @@ def _same(a, b) -> bool:
     return type(a) is type(b) and a == b
 
 
-def _check_label(rows: _Rows, src: _Source, m: Mapping, per: list) -> tuple[list, object, bool]:
-    """The intake's label checks over the distinct raw values (first appearance first)."""
+def _check_label(rows: _Rows, src: _Source, m: Mapping, per: list, tot: dict
+                 ) -> tuple[list, object, bool]:
+    """The intake's label checks over the distinct raw values (first appearance first).
+
+    ``per`` holds the most frequent values (all of them unless the column has
+    more than ``_LABEL_LIMIT``; then only the count of the others is known,
+    which is all the messages need).
+    """
+    lab = src.col(m.label)
+    missing_sql = _missing_sql(lab, src.types[m.label])
+    if tot["label_missing"]:
+        raise InputError(m.label, "has missing values", rows.where(missing_sql),
+                         hint="Every case needs a label; fill them in or remove those rows")
+    n_distinct = int(per[0]["n_labels"])
     per = sorted(per, key=lambda r: r["first_row"])
     raw_values = [r["lab"] for r in per]
     ser = _typed_distinct(src, m.label, raw_values)
     codes, uniques, merged = _label_codes(ser)
     kept = np.array([int(r["n"]) for r in per], dtype=np.int64)
-    lab = src.col(m.label)
-    missing_sql = _missing_sql(lab, src.types[m.label])
-    if (kept[codes < 0] > 0).any():
-        raise InputError(m.label, "has missing values", rows.where(missing_sql),
-                         hint="Every case needs a label; fill them in or remove those rows")
     ok = codes >= 0
     counts = np.bincount(codes[ok], weights=kept[ok], minlength=len(uniques)).astype(np.int64)
     present = counts > 0
     k = int(present.sum())
     order = [i for i in np.argsort(-counts, kind="stable") if present[i]]
+    if n_distinct > len(per):  # values beyond the fetched ones: only their number is listed
+        k += n_distinct - len(per)
+        order += order[-1:] * (n_distinct - len(per))
     listing = _value_list(uniques, counts, order)
     if k != 2:
         if k < 2:

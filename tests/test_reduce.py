@@ -392,13 +392,19 @@ def _case(name):
         d["score"] = d["score"].astype(float) * 10
     elif name == "missing_column":
         kw.update(weight="weight", weight_kind="sampling")
+    elif name == "label_many_values":  # more distinct values than the check pass fetches
+        rng = np.random.default_rng(2)
+        d = pd.DataFrame({"score": rng.random(24000),
+                          "label": np.round(rng.random(24000) * 16000).astype(int)})
+        kw["positive"] = 1
     return d, kw
 
 
 CASES = ["score_text", "score_missing", "score_dropped", "score_infinite", "label_missing",
          "label_three", "label_one", "label_no_match", "label_spaces", "weight_negative",
          "weight_missing", "weight_text", "weight_zero_events", "cost_missing_for_events",
-         "cost_negative", "group_missing", "scores_outside", "missing_column"]
+         "cost_negative", "group_missing", "scores_outside", "missing_column",
+         "label_many_values"]
 
 
 def _as_parquet(d: pd.DataFrame) -> pd.DataFrame:
@@ -437,7 +443,7 @@ def test_bad_rows_get_the_row_intakes_messages(tmp_path, fmt, name):
                                        **kw))
     assert got == expected
     if name in ("score_text", "score_missing", "label_three", "weight_negative",
-                "cost_missing_for_events", "missing_column"):
+                "cost_missing_for_events", "missing_column", "label_many_values"):
         assert got[0] == "error"  # the case does hit a problem
     if name in ("score_dropped", "group_missing", "label_spaces", "scores_outside"):
         assert got[0] == "ok" and got[1]
