@@ -134,6 +134,7 @@ class _ClassDraw:
         if self.kind == "frequency":
             u = g.random(self.M)
             u *= self.W
+            u.sort()  # the same draws; sorted keys make the binary searches run forward
             idx = np.searchsorted(self.cum, u, side="right")
             np.minimum(idx, self.n - 1, out=idx)
             return idx

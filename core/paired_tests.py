@@ -106,21 +106,28 @@ def _rank(y: np.ndarray, score: np.ndarray, w: np.ndarray | None, higher_is_risk
     n = o.shape[0]
     order = np.argsort(o)
     os_ = o[order]
-    run = np.empty(n, dtype=np.int64)
-    run[0] = 0
-    if n > 1:
-        np.cumsum(os_[1:] != os_[:-1], out=run[1:])
+    new = np.empty(n, dtype=bool)
+    new[0] = True
+    np.not_equal(os_[1:], os_[:-1], out=new[1:])
+    run = np.cumsum(new, dtype=np.int64)
+    run -= 1
     d = int(run[-1]) + 1
     inv = np.empty(n, dtype=np.int64)
     inv[order] = run
+    ends = np.empty(d, dtype=np.int64)  # last sorted position of each run
+    ends[:-1] = np.flatnonzero(new[1:])
+    ends[-1] = n - 1
     ys = y[order]
     if w is None:
-        ev = np.bincount(run, weights=ys.astype(np.float64), minlength=d)
-        tot = np.bincount(run, minlength=d).astype(np.float64)
+        ev = np.diff(np.cumsum(ys, dtype=np.int64)[ends], prepend=0).astype(np.float64)
+        tot = np.diff(ends, prepend=-1).astype(np.float64)
     else:
         ws = w[order]
-        ev = np.bincount(run, weights=np.where(ys, ws, 0.0), minlength=d)
-        tot = np.bincount(run, weights=ws, minlength=d)
+        starts = np.empty(d, dtype=np.int64)
+        starts[0] = 0
+        starts[1:] = ends[:-1] + 1
+        ev = np.add.reduceat(np.where(ys, ws, 0.0), starts)
+        tot = np.add.reduceat(ws, starts)
     ne = tot - ev
     P, N = float(ev.sum()), float(ne.sum())
     ne_below = np.cumsum(ne) - ne

@@ -371,6 +371,41 @@ def test_each_replicate_equals_scikit_learn_on_the_resampled_rows():
         assert rep["recall_precision"][r] == pytest.approx(pb - pa, abs=1e-12)
 
 
+@pytest.mark.parametrize("kind", ["frequency", "sampling"])
+def test_weighted_replicates_equal_scikit_learn_on_the_drawn_cases(kind):
+    # Source: scikit-learn roc_auc_score / average_precision_score with sample_weight
+    # (reference library) on the documented draws: frequency weights draw round(W_c) cases
+    # with probability proportional to the weights (u = random(M) * W_c placed in the
+    # cumulative weights), each counting W_c / M; sampling weights draw n_c rows uniformly,
+    # each carrying its own weight.
+    y, a, b = _pair(seed=20, n=600, prevalence=0.1, decimals=1)
+    rng = np.random.default_rng(21)
+    w = rng.integers(1, 4, y.size).astype(float) if kind == "frequency" else rng.uniform(0.2, 3, y.size)
+    seed, R = 4, 15
+    c = compare_scores(y, {"a": a, "b": b}, sample_weight=w, weight_kind=kind, n_replicates=R,
+                       seed=seed)
+    ev, ne = np.flatnonzero(y), np.flatnonzero(~y)
+    for r in range(R):
+        g = np.random.default_rng([seed, r])
+        mult = np.zeros(y.size)
+        for rows in (ev, ne):
+            if kind == "frequency":
+                W = w[rows].sum()
+                M = round(W)
+                idx = np.searchsorted(np.cumsum(w[rows]), g.random(M) * W, side="right")
+                np.add.at(mult, rows[idx], W / M)
+            else:
+                idx = g.integers(0, rows.size, size=rows.size, dtype=np.int32)
+                np.add.at(mult, rows[idx], w[rows[idx]])
+        keep = mult > 0
+        yr, ar, br, wr = y[keep], a[keep], b[keep], mult[keep]
+        want = roc_auc_score(yr, br, sample_weight=wr) - roc_auc_score(yr, ar, sample_weight=wr)
+        assert c.replicates["b"]["roc_auc"][r] == pytest.approx(want, abs=1e-10)
+        want = (average_precision_score(yr, br, sample_weight=wr)
+                - average_precision_score(yr, ar, sample_weight=wr))
+        assert c.replicates["b"]["average_precision"][r] == pytest.approx(want, abs=1e-10)
+
+
 def test_bootstrap_reproducible_threads_and_progress():
     # Source: common practice, no source: per-replicate seeds make the results independent
     # of threads and chunking; progress reports reach the total.
@@ -477,3 +512,60 @@ def test_json_safe_and_bad_input():
         compare_scores(y, {"a": a, "b": b}, sample_weight=np.ones(y.size))
     with pytest.raises(InputError, match="higher_is_riskier"):
         compare_scores(y, {"a": a, "b": b}, higher_is_riskier={"c": False})
+
+
+def test_case_dependent_costs_replicate_by_hand():
+    # Source: hand computation with numpy on the drawn rows (common practice): with per-case
+    # miss costs a_i, expected cost = pi * (missed events' summed a_i / events) + C_FP (1 - pi)
+    # FPR (core.costs, from the brief), each threshold fixed at its policy point.
+    y, a, b = _pair(seed=22, n=1500, prevalence=0.08)
+    amount = np.random.default_rng(23).uniform(10, 100, y.size)
+    pol = loads_policy('[objective]\nkind = "min_cost"\n[costs]\nfalse_positive = 2.0\n'
+                       'false_negative_column = "case_cost"\n')
+    seed, R = 8, 8
+    c = compare_scores(y, {"a": a, "b": b}, event_cost=amount, policy=pol, n_replicates=R,
+                       seed=seed)
+    ta = c.point_sets["policy"].points["a"].threshold
+    tb = c.point_sets["policy"].points["b"].threshold
+    ev, ne = np.flatnonzero(y), np.flatnonzero(~y)
+    pi = y.mean()
+    for r in range(R):
+        g = np.random.default_rng([seed, r])
+        rows = np.r_[ev[g.integers(0, ev.size, size=ev.size, dtype=np.int32)],
+                     ne[g.integers(0, ne.size, size=ne.size, dtype=np.int32)]]
+        yr, cr = y[rows], amount[rows]
+
+        def cost(s, t, rows=rows, yr=yr, cr=cr):
+            f = s[rows] >= t
+            missed = cr[yr & ~f].sum() / yr.sum()
+            return pi * missed + 2.0 * (1 - pi) * f[~yr].mean()
+
+        assert c.replicates["b"]["policy_cost_per_case"][r] == pytest.approx(
+            cost(b, tb) - cost(a, ta), rel=1e-10)
+
+
+def test_three_scores_each_against_the_reference():
+    # Source: DeLong et al. 1988 (from memory) for k correlated AUCs: the k x k covariance.
+    y, a, b = _pair(seed=24, n=3000)
+    c3 = np.round(a + b, 3)
+    comp = compare_scores(y, {"a": a, "b": b, "c": c3}, reference="b", bootstrap=False)
+    assert comp.models == ("b", "a", "c") and comp.reference == "b"
+    assert [p.candidate for p in comp.pairs] == ["a", "c"]
+    res = delong_covariance(y, [b, a, c3])
+    np.testing.assert_allclose(comp.auc_covariance, res.covariance, rtol=1e-12)
+    assert comp.pair("c").roc_auc.difference == pytest.approx(res.aucs[2] - res.aucs[0])
+    assert comp.pair("a").roc_auc.se == pytest.approx(res.difference(0, 1).se)
+
+
+def test_policy_no_point_of_one_score_meets():
+    # Source: core.choose.choose (the same policy on each curve): a rule the weaker score
+    # cannot meet leaves it without a point, said in words, not compared silently.
+    y, a, b = _pair(seed=25, n=4000, prevalence=0.05, shift_a=0.3, shift_b=2.5)
+    pol = loads_policy('[objective]\nkind = "max_recall"\n[rules]\nmin_precision = 0.5\n')
+    assert choose(sweep(y, a), pol).point is None and choose(sweep(y, b), pol).point is not None
+    c = compare_scores(y, {"a": a, "b": b}, policy=pol, n_replicates=50)
+    assert c.point_sets["policy"].points["a"] is None
+    assert "policy" not in c.pairs[0].at
+    assert "no threshold of 'a' meets every rule" in c.pairs[0].verdict_text
+    assert c.point_sets["workload"].target_source.startswith("the validation prevalence")
+    json.dumps(c.to_dict(), allow_nan=False)
