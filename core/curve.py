@@ -212,7 +212,8 @@ class Curve:
     # ------------------------------------------------------------------ builders
     @classmethod
     def _from_cumulative(cls, asc, tp_strict, flagged_strict, *, higher_is_riskier, cost_strict=None,
-                         tp_sq_strict=None, flagged_sq_strict=None, n_rows, weighted):
+                         tp_sq_strict=None, flagged_sq_strict=None, n_rows, weighted,
+                         fp_strict=None, fp_sq_strict=None):
         """Build from distinct scores ``asc`` (ascending) and cumulative sums in point order.
 
         The ``*_strict`` arrays hold, for the distinct scores from strictest to
@@ -236,20 +237,26 @@ class Curve:
         thresholds = stack(np.inf if higher_is_riskier else -np.inf,
                            asc[::-1] if higher_is_riskier else asc)
         tp = stack(0.0, tp_strict)
-        fp = np.array(flagged_strict, dtype=np.float64, copy=None)
-        if fp.shape[0] == d:
-            fp = stack(0.0, fp)
-        fp.setflags(write=True)
-        np.subtract(fp, tp, out=fp)
-        fp.setflags(write=False)
+        if fp_strict is not None:  # weighted sums: cumulate the non-events themselves (monotone)
+            fp = stack(0.0, np.asarray(fp_strict, dtype=np.float64))
+        else:
+            fp = np.array(flagged_strict, dtype=np.float64, copy=None)
+            if fp.shape[0] == d:
+                fp = stack(0.0, fp)
+            fp.setflags(write=True)
+            np.subtract(fp, tp, out=fp)
+            fp.setflags(write=False)
         ec = stack(0.0, cost_strict) if cost_strict is not None else None
         tps = fps = None
         if tp_sq_strict is not None:
             tps = stack(0.0, tp_sq_strict)
-            fps = stack(0.0, flagged_sq_strict)
-            fps.setflags(write=True)
-            np.subtract(fps, tps, out=fps)
-            fps.setflags(write=False)
+            if fp_sq_strict is not None:
+                fps = stack(0.0, np.asarray(fp_sq_strict, dtype=np.float64))
+            else:
+                fps = stack(0.0, flagged_sq_strict)
+                fps.setflags(write=True)
+                np.subtract(fps, tps, out=fps)
+                fps.setflags(write=False)
         return cls(
             thresholds=thresholds, tp=tp, fp=fp,
             n_events=float(tp[-1]), n_nonevents=float(fp[-1]),
@@ -270,10 +277,9 @@ class Curve:
             return np.cumsum(cells[::-1] if higher_is_riskier else cells)
 
         return cls._from_cumulative(
-            asc, cum(pos), cum(np.add(pos, neg)), higher_is_riskier=higher_is_riskier,
-            cost_strict=cum(cost), tp_sq_strict=cum(pos_sq),
-            flagged_sq_strict=None if pos_sq is None else cum(np.add(pos_sq, neg_sq)),
-            n_rows=n_rows, weighted=weighted)
+            asc, cum(pos), None, higher_is_riskier=higher_is_riskier,
+            cost_strict=cum(cost), tp_sq_strict=cum(pos_sq), fp_strict=cum(neg),
+            fp_sq_strict=cum(neg_sq), n_rows=n_rows, weighted=weighted)
 
     @classmethod
     def from_counts(cls, score, events, non_events, *, higher_is_riskier=True, event_cost=None,
@@ -708,7 +714,8 @@ def _sweep_weighted(y, s, w, a, higher_is_riskier):
         return c if ends is None else c[ends]
 
     cost = None if a is None else cum(np.where(y[order], ws * a[order], 0.0))
+    wn = ws - wy
     return Curve._from_cumulative(
-        np.ascontiguousarray(asc), cum(wy), cum(ws), higher_is_riskier=higher_is_riskier,
-        cost_strict=cost, tp_sq_strict=cum(wy * wy), flagged_sq_strict=cum(ws * ws),
+        np.ascontiguousarray(asc), cum(wy), None, higher_is_riskier=higher_is_riskier,
+        cost_strict=cost, tp_sq_strict=cum(wy * wy), fp_strict=cum(wn), fp_sq_strict=cum(wn * wn),
         n_rows=n, weighted=True)

@@ -432,3 +432,20 @@ def test_weighted_event_cost_both_paths_equal_brute_force(decimals, higher):
         assert c.event_cost_flagged[k] == pytest.approx(np.sum((w * a)[flagged & (y == 1)]), rel=1e-12, abs=1e-9)
         assert c.tp_sq[k] == np.sum((w * w)[flagged & (y == 1)])
     assert not np.signbit(c.thresholds).any() or np.all(c.thresholds[np.signbit(c.thresholds)] < 0)
+
+
+@pytest.mark.parametrize("decimals", [None, 1])
+def test_weighted_counts_are_monotone_and_within_totals(decimals):
+    # Float sums must never let FP exceed N (1 - FPR < 0 broke an interval): FP is the running sum
+    # of the non-events' own weights, so it is monotone and ends exactly at N.
+    rng = np.random.default_rng(5)
+    y = rng.random(3000) < 0.3
+    s = rng.normal(size=3000)
+    if decimals is not None:
+        s = np.round(s, decimals)
+    w = rng.uniform(0.1, 3.0, 3000) * 1.00001
+    for higher in (True, False):
+        c = sweep(y, s, w, higher_is_riskier=higher)
+        assert np.all(np.diff(c.fp) >= 0) and np.all(np.diff(c.tp) >= 0)
+        assert np.all(c.fp <= c.n_nonevents) and np.all(c.tp <= c.n_events)
+        assert np.all(c.specificity >= 0) and np.all(c.fp_sq >= 0)
