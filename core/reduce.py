@@ -46,6 +46,7 @@ import csv
 import gzip
 import io
 import os
+import re
 import shutil
 import tempfile
 import threading
@@ -97,13 +98,17 @@ __all__ = ["Reduction", "RoundingEffect", "reduce_file", "reduction_of"]
 _SAMPLE_BYTES = 1 << 16
 _SHOW_DROPPED = 100
 _ROW = "fulcrum_row"
-# ASCII white space, written with chr() so the SQL text stays printable
-_WS_SQL = "' ' || chr(9) || chr(10) || chr(11) || chr(12) || chr(13)"
+# white space around a value (RE2 classes: ASCII, vertical tab, NEL, Unicode separators);
+# regular expressions are cheaper in DuckDB than trim() with a character set
+_WS = r"[\s\x{0B}\x{85}\p{Z}]*"
 _NUMERIC_TYPES = ("TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT",
                   "UINTEGER", "UBIGINT", "UHUGEINT", "FLOAT", "DOUBLE")
 _TIME_TYPES = ("DATE", "TIME", "TIMESTAMP", "INTERVAL")
 # the number shapes pandas.to_numeric reads (DuckDB's cast alone would also take 1_000)
-_NUMBER_RE = r"(?i)^[+-]?((\d+\.?\d*|\.\d+)(e[+-]?\d+)?|inf|infinity)$"
+_NUMBER_RE = "(?i)^" + _WS + r"[+-]?((\d+\.?\d*|\.\d+)(e[+-]?\d+)?|inf|infinity)" + _WS + "$"
+# the missing-value words (and nothing but white space), as the intake reads them
+_MISSING_RE = ("^" + _WS + "(" + "|".join(re.escape(w) for w in MISSING_TEXT if w) + ")?"
+               + _WS + "$")
 
 
 # =========================================================================== descriptions
@@ -427,8 +432,6 @@ def _csv_sample(p: Path, gz: bool, label: str) -> str:
 
 
 def _csv_source(p: Path, label: str, engine: _Engine, *, delimiter, decimal, gz: bool) -> _Source:
-    import re
-
     sample = _csv_sample(p, gz, label)
     if not sample.strip():
         raise InputError(None, f"{label} is empty (no header and no data rows)")
@@ -506,8 +509,7 @@ class _Num:
 def _missing_sql(c: str, typ: str) -> str:
     """Where a value counts as missing: NULL, NaN, or (text) a missing-value word."""
     if typ == "VARCHAR":
-        words = ", ".join(quote_literal(w, "duckdb") for w in MISSING_TEXT)
-        return f"({c} IS NULL OR trim({c}, {_WS_SQL}) IN ({words}))"
+        return f"({c} IS NULL OR regexp_full_match({c}, {quote_literal(_MISSING_RE, 'duckdb')}))"
     if typ in ("FLOAT", "DOUBLE"):
         return f"({c} IS NULL OR isnan({c}))"
     return f"({c} IS NULL)"
@@ -522,14 +524,16 @@ def _num_sql(src: _Source, name: str) -> _Num:
         return _Num(v, _missing_sql(c, typ), "FALSE", f"COALESCE(isinf({v}), FALSE)", "number",
                     f"CAST({c} AS VARCHAR)")
     if typ == "VARCHAR":
-        t = f"trim({c}, {_WS_SQL})"
+        t = c  # DuckDB's cast skips surrounding white space itself
         if src.thousands:
             t = f"replace({t}, {quote_literal(src.thousands, 'duckdb')}, '')"
         if src.decimal != ".":
             t = f"replace({t}, {quote_literal(src.decimal, 'duckdb')}, '.')"
         v = (f"(CASE WHEN regexp_full_match({t}, {quote_literal(_NUMBER_RE, 'duckdb')}) "
              f"THEN TRY_CAST({t} AS DOUBLE) END)")
-        miss = _missing_sql(c, typ)
+        # a number is never missing: the words are looked for only where no number was read
+        miss = (f"({c} IS NULL OR ({v} IS NULL AND "
+                f"regexp_full_match({c}, {quote_literal(_MISSING_RE, 'duckdb')})))")
         return _Num(v, miss, f"(NOT {miss} AND {v} IS NULL)", f"COALESCE(isinf({v}), FALSE)",
                     "text", c)
     miss = f"({c} IS NULL)"

@@ -42,6 +42,7 @@ from core.intake import load_count_table, load_dataset
 from core.reduce import reduce_file, reduction_of
 from core.sql import (
     MAX_GRID_INDEX,
+    decimal_precision,
     quote_identifier,
     quote_literal,
     reduction_sql,
@@ -246,24 +247,40 @@ def test_the_float64_trap_is_real():
 
 @pytest.mark.parametrize("d", [0, 2, 4, 7])
 @pytest.mark.parametrize("higher", [True, False])
-def test_coarse_score_follows_the_grid_rule(tmp_path, d, higher):
+@pytest.mark.parametrize("bounded", [False, True])
+def test_coarse_score_follows_the_grid_rule(tmp_path, d, higher, bounded):
     # Reference: the rule in core.sql's docstring computed in exact rational arithmetic.
     import duckdb
 
     rng = np.random.default_rng(d)
     s = _tricky_scores(rng, d)
     s = s[np.abs(s) * 10**d < MAX_GRID_INDEX]
+    bound = None
+    if bounded:  # scores known to lie in [-2, 2]: the 18-digit decimal step
+        s = s[np.abs(s) <= 2]
+        bound = 2.0
     y = np.zeros(s.shape[0], dtype=np.int64)
     con = duckdb.connect()
     con.register("t", pd.DataFrame({"s": s, "y": y, "i": np.arange(s.shape[0])}))
     sql = reduction_sql("t", score="s", label="y", positive=1, groups=("i",), decimals=d,
-                        higher_is_riskier=higher, dialect="duckdb")
+                        higher_is_riskier=higher, dialect="duckdb", score_bound=bound)
+    assert f"DECIMAL({18 if bounded else 38}, {d + 3})" in sql
     got = con.sql(sql).to_df().sort_values("i")["s"].to_numpy()
     np.testing.assert_array_equal(got, _grid_reference(s, d, higher))
     if d == 2:
         # the trap values land on their own grid value, not one step below
         assert got[np.flatnonzero(s == 0.29)[0]] == 0.29
-        assert got[np.flatnonzero(s == 123456.29)[0]] == 123456.29
+        if not bounded:
+            assert got[np.flatnonzero(s == 123456.29)[0]] == 123456.29
+
+
+def test_decimal_precision_follows_the_bound():
+    # Worked by hand: 18 digits hold |s| * 10^(2d + 3) < 10^18.
+    assert decimal_precision(4) == 38
+    assert decimal_precision(4, 1.0) == 18
+    assert decimal_precision(7, 1.0) == 18 and decimal_precision(8, 1.0) == 38
+    assert decimal_precision(2, 9.99e10) == 18 and decimal_precision(2, 1e11) == 38
+    assert decimal_precision(2, float("nan")) == 38
 
 
 @pytest.mark.parametrize("higher", [True, False])
