@@ -82,7 +82,7 @@ from core.choose import Choice, choose, json_safe
 from core.curve import Curve, _check_finite, _check_labels, sweep
 from core.dataset import Dataset
 from core.errors import InputError
-from core.paired_bootstrap import PairedResampler, cell_statistics, model_cells
+from core.paired_bootstrap import PairedResampler, _dot, cell_statistics, model_cells
 from core.paired_tests import (
     AucDifference,
     McNemarResult,
@@ -606,8 +606,8 @@ class _Replicates:
             cf = self.cost_flags[m]
             if cf is not None:
                 a, flagged = cf
-                self.cost_total[i] = float(np.dot(mass, a))
-                self.cost_flagged[i, m] = float(np.dot(mass[flagged], a[flagged]))
+                self.cost_total[i] = float(_dot(mass, a))
+                self.cost_flagged[i, m] = float(_dot(mass[flagged], a[flagged]))
 
 
 def _cost(rp, tpr, fpr, miss_share=None):

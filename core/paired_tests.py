@@ -105,29 +105,29 @@ def _rank(y: np.ndarray, score: np.ndarray, w: np.ndarray | None, higher_is_risk
     o = score if higher_is_riskier else -score
     n = o.shape[0]
     order = np.argsort(o)
-    os_ = o[order]
+    os_ = np.sort(o)  # the same sequence as o[order], without a gather
     new = np.empty(n, dtype=bool)
     new[0] = True
     np.not_equal(os_[1:], os_[:-1], out=new[1:])
-    run = np.cumsum(new, dtype=np.int64)
+    itype = np.int32 if n < 2**31 else np.int64
+    run = np.cumsum(new, dtype=itype)
     run -= 1
     d = int(run[-1]) + 1
-    inv = np.empty(n, dtype=np.int64)
+    inv = np.empty(n, dtype=itype)
     inv[order] = run
     ends = np.empty(d, dtype=np.int64)  # last sorted position of each run
     ends[:-1] = np.flatnonzero(new[1:])
     ends[-1] = n - 1
-    ys = y[order]
+    ev_rows = np.flatnonzero(y)
     if w is None:
-        ev = np.diff(np.cumsum(ys, dtype=np.int64)[ends], prepend=0).astype(np.float64)
+        ev = np.bincount(inv[ev_rows], minlength=d).astype(np.float64)
         tot = np.diff(ends, prepend=-1).astype(np.float64)
     else:
-        ws = w[order]
+        ev = np.bincount(inv[ev_rows], weights=w[ev_rows], minlength=d)
         starts = np.empty(d, dtype=np.int64)
         starts[0] = 0
         starts[1:] = ends[:-1] + 1
-        ev = np.add.reduceat(np.where(ys, ws, 0.0), starts)
-        tot = np.add.reduceat(ws, starts)
+        tot = np.add.reduceat(w[order], starts)
     ne = tot - ev
     P, N = float(ev.sum()), float(ne.sum())
     ne_below = np.cumsum(ne) - ne
