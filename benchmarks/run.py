@@ -140,7 +140,8 @@ def bench_choose(n: int = 1_000_000, repeats: int = 3) -> dict:
             "goal": "< 1 s", "met": bool(t < 1.0)}
 
 
-SECTIONS = ("sweep", "f1", "intake", "choose", "bootstrap", "crossfit", "app")
+SECTIONS = ("sweep", "f1", "intake", "choose", "bootstrap", "crossfit", "app", "compare", "memory",
+            "reduce")
 
 
 def extra_sections(quick: bool, sections=SECTIONS) -> list[dict]:
@@ -161,6 +162,18 @@ def extra_sections(quick: bool, sections=SECTIONS) -> list[dict]:
         rows.append(bench_crossfit(n_rows=n))
     if "app" in sections:
         rows.append(bench_point_move(n_rows=n, moves=5 if quick else 10))
+    if "compare" in sections:
+        from benchmarks.bench_compare import bench_compare
+
+        rows.extend(bench_compare(n_rows=n))
+    if "memory" in sections:
+        from benchmarks.bench_reduce import bench_sweep_memory
+
+        rows.append(bench_sweep_memory(n_rows=1_000_000 if quick else 10_000_000))
+    if "reduce" in sections:
+        from benchmarks.bench_reduce import bench_reduction
+
+        rows.append(bench_reduction(n_rows=1_000_000 if quick else 50_000_000))
     return rows
 
 

@@ -70,3 +70,11 @@ __all__ += ["Analysis", "analyse", "decide", "MemoFieldsError", "check_memo_fiel
             "load_memo_fields", "loads_memo_fields", "save_memo_fields", "SCHEMA", "RecordError",
             "check_record", "dumps_record", "fingerprint_note", "load_record", "loads_record",
             "restore_decision", "without_timestamps", "write_record"]
+
+from core.compare import Comparison, compare_dataset, compare_scores  # noqa: E402
+from core.recheck import RecheckResult, recheck  # noqa: E402
+from core.reduce import reduce_file  # noqa: E402
+from core.sql import reduction_sql  # noqa: E402
+
+__all__ += ["Comparison", "compare_dataset", "compare_scores", "RecheckResult", "recheck", "reduce_file",
+            "reduction_sql"]
