@@ -12,8 +12,15 @@ from pathlib import Path
 import streamlit as st
 
 from app import state
-from core.policy import (OBJECTIVE_LABELS, OBJECTIVES, PERIODS, Policy, PolicyError, dumps_policy,
-                         loads_policy)
+from core.policy import (
+    OBJECTIVE_LABELS,
+    OBJECTIVES,
+    PERIODS,
+    Policy,
+    PolicyError,
+    dumps_policy,
+    loads_policy,
+)
 
 POLICY_DIR = Path(__file__).resolve().parents[1] / "sample_data" / "policies"
 RATE_RULES = {

@@ -127,8 +127,8 @@ def bench_f1_all_thresholds(n: int = 100_000, probe: int = 20) -> dict:
 
 def bench_choose(n: int = 1_000_000, repeats: int = 3) -> dict:
     """choose() on the exact curve at 1M rows (lowest cost with a recall rule and confidence)."""
-    from core.policy import loads_policy
     from core.choose import choose
+    from core.policy import loads_policy
 
     y, s = make_scores(n, rounded=False)
     curve = sweep(y, s)

@@ -23,28 +23,66 @@ from core.dataset import Dataset, IntakeWarning, Mapping  # noqa: E402
 __all__ += ["Dataset", "IntakeWarning", "Mapping"]
 
 from core.choose import Choice, PointReport, RuleCheck, choose, cost_by_threshold, evaluate  # noqa: E402
-from core.policy import (Costs, Deployment, Fairness, Objective, Policy, PolicyError,  # noqa: E402
-                         Rules, dumps_policy, load_policy, loads_policy, resolve_policy, save_policy)
+from core.policy import (  # noqa: E402
+           Costs,
+           Deployment,
+           Fairness,
+           Objective,
+           Policy,
+           PolicyError,
+           Rules,
+           dumps_policy,
+           load_policy,
+           loads_policy,
+           resolve_policy,
+           save_policy,
+)
 
 __all__ += ["Choice", "PointReport", "RuleCheck", "choose", "cost_by_threshold", "evaluate", "Costs",
             "Deployment", "Fairness", "Objective", "Policy", "PolicyError", "Rules", "dumps_policy",
             "load_policy", "loads_policy", "resolve_policy", "save_policy"]
 
-from core.intake import (DEMOS, label_values, load_count_table, load_dataset, load_demo,  # noqa: E402
-                         suggest_mapping)
+from core.intake import (  # noqa: E402
+           DEMOS,
+           label_values,
+           load_count_table,
+           load_dataset,
+           load_demo,
+           suggest_mapping,
+)
 from core.reading import RawTable, ReadInfo, read_table  # noqa: E402
 
 __all__ += ["DEMOS", "label_values", "load_count_table", "load_dataset", "load_demo", "suggest_mapping",
             "RawTable", "ReadInfo", "read_table"]
 
-from core.bootstrap import (DESIGNS, BootstrapResult, EventCells, bootstrap,  # noqa: E402
-                            bootstrap_counts, event_cells, percentile_interval)
-from core.optimism import (CrossFit, HarrellCorrection, Optimism, cross_fit,  # noqa: E402
-                           harrell_correction, optimism)
+from core.bootstrap import (  # noqa: E402
+           DESIGNS,
+           BootstrapResult,
+           EventCells,
+           bootstrap,
+           bootstrap_counts,
+           event_cells,
+           percentile_interval,
+)
+from core.optimism import (  # noqa: E402
+           CrossFit,
+           HarrellCorrection,
+           Optimism,
+           cross_fit,
+           harrell_correction,
+           optimism,
+)
 from core.stability import ThresholdStability, threshold_stability  # noqa: E402
-from core.uncertainty import (Evidence, Interval, bootstrap_intervals, curve_intervals,  # noqa: E402
-                              events_for_recall_half_width, evidence, few_events_statement,
-                              point_intervals)
+from core.uncertainty import (  # noqa: E402
+           Evidence,
+           Interval,
+           bootstrap_intervals,
+           curve_intervals,
+           events_for_recall_half_width,
+           evidence,
+           few_events_statement,
+           point_intervals,
+)
 
 __all__ += ["DESIGNS", "BootstrapResult", "EventCells", "bootstrap", "bootstrap_counts", "event_cells",
             "percentile_interval", "CrossFit", "HarrellCorrection", "Optimism", "cross_fit",
@@ -60,11 +98,26 @@ __all__ += ["CalibrationReport", "calibration_report", "ClusterSummary", "cluste
             "cluster_summary", "SubgroupReport", "fairness_verdict", "subgroup_report"]
 
 from core.decision import Analysis, analyse, decide  # noqa: E402
-from core.memo_fields import (MemoFieldsError, check_memo_fields, dumps_memo_fields,  # noqa: E402
-                              load_memo_fields, loads_memo_fields, save_memo_fields)
-from core.record import (SCHEMA, RecordError, check_record, dumps_record, fingerprint_note,  # noqa: E402
-                         load_record, loads_record, restore_decision, without_timestamps,
-                         write_record)
+from core.memo_fields import (  # noqa: E402
+           MemoFieldsError,
+           check_memo_fields,
+           dumps_memo_fields,
+           load_memo_fields,
+           loads_memo_fields,
+           save_memo_fields,
+)
+from core.record import (  # noqa: E402
+           SCHEMA,
+           RecordError,
+           check_record,
+           dumps_record,
+           fingerprint_note,
+           load_record,
+           loads_record,
+           restore_decision,
+           without_timestamps,
+           write_record,
+)
 
 __all__ += ["Analysis", "analyse", "decide", "MemoFieldsError", "check_memo_fields", "dumps_memo_fields",
             "load_memo_fields", "loads_memo_fields", "save_memo_fields", "SCHEMA", "RecordError",

@@ -940,6 +940,25 @@ def _cost_per_case(tp, fp, P, N, cost_cum, cols, costs, pi):
                 + float(costs.get("true_negative", 0.0)) * (1.0 - pi) * (1.0 - fpr))
 
 
+def _prepare(cells, ths, costs, prevalence, n_replicates, recall_grid, fpr_grid):
+    """Check a bootstrap's inputs and allocate its per-replicate result arrays."""
+    cols = [cells.column(t) for t in ths]
+    if costs is not None and costs.get("false_negative") is None and not cells.has_costs:
+        raise InputError("costs", "false_negative is missing and the data hold no per-case miss "
+                         "costs")
+    if prevalence is not None and not 0.0 < float(prevalence) < 1.0:
+        raise InputError("prevalence", f"must lie strictly between 0 and 1, got {prevalence!r}")
+    n_rep = int(n_replicates)
+    rg = np.asarray(recall_grid, dtype=np.float64)
+    fg = np.asarray(fpr_grid, dtype=np.float64)
+    k = len(cols)
+    arrays = (np.empty(n_rep), np.empty(n_rep), np.empty((n_rep, rg.shape[0])),
+              np.empty((n_rep, fg.shape[0])), np.empty(n_rep), np.empty(n_rep),
+              np.empty((n_rep, k)), np.empty((n_rep, k)),
+              np.empty((n_rep, k)) if costs is not None else None, np.empty(n_rep))
+    return cols, n_rep, rg, fg, arrays
+
+
 def _record_points(ch, tp, fp, P, N, s, cols, costs, prevalence, at_tp, at_fp, at_cost, at_pi) -> None:
     """Store one chunk's prevalence, counts and cost at the fixed thresholds' columns."""
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -1012,25 +1031,8 @@ def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
     ths = tuple(float(t) for t in thresholds)
     if cells is None:
         cells = event_cells(data, thresholds=ths, sampling_weights=sampling_weights)
-    cols = [cells.column(t) for t in ths]
-    if costs is not None and costs.get("false_negative") is None and not cells.has_costs:
-        raise InputError("costs", "false_negative is missing and the data hold no per-case miss "
-                         "costs")
-    if prevalence is not None and not 0.0 < float(prevalence) < 1.0:
-        raise InputError("prevalence", f"must lie strictly between 0 and 1, got {prevalence!r}")
-    n_rep = int(n_replicates)
-    rg = np.asarray(recall_grid, dtype=np.float64)
-    fg = np.asarray(fpr_grid, dtype=np.float64)
-    auc = np.empty(n_rep)
-    ap = np.empty(n_rep)
-    pb = np.empty((n_rep, rg.shape[0]))
-    tb = np.empty((n_rep, fg.shape[0]))
-    Ps = np.empty(n_rep)
-    Ns = np.empty(n_rep)
-    k = len(cols)
-    at_tp, at_fp = np.empty((n_rep, k)), np.empty((n_rep, k))
-    at_cost = np.empty((n_rep, k)) if costs is not None else None
-    at_pi = np.empty(n_rep)
+    cols, n_rep, rg, fg, (auc, ap, pb, tb, Ps, Ns, at_tp, at_fp, at_cost, at_pi) = _prepare(
+        cells, ths, costs, prevalence, n_replicates, recall_grid, fpr_grid)
     tie = np.flatnonzero(cells.is_event)
     for ch in bootstrap_counts(cells, n_rep, seed, design, chunk=chunk, progress=progress,
                                n_jobs=n_jobs):

@@ -51,13 +51,13 @@ import numpy as np
 import pandas as pd
 
 from core import costs as _costs
+from core import formatting as _formatting
 from core import intervals as _iv
 from core.capacity import PeriodFlags
 from core.dataset import Dataset
 from core.errors import InputError
 from core.metrics import confusion_metrics
-from core.policy import (OBJECTIVE_LABELS, RULE_LABELS, Policy, ResolvedPolicy,
-                         resolve_policy)
+from core.policy import OBJECTIVE_LABELS, RULE_LABELS, Policy, ResolvedPolicy, resolve_policy
 
 __all__ = ["RuleCheck", "PointReport", "Choice", "choose", "evaluate", "cost_by_threshold", "json_safe"]
 
@@ -218,20 +218,8 @@ class Choice:
 
 # --------------------------------------------------------------------------- analysis
 
-def _fmt_pct(x, digits=1):
-    if x is None or not np.isfinite(x):
-        return "undefined"
-    return f"{100 * x:.{digits}f} %"
-
-
-def _fmt_num(x, sig=4):
-    if x is None:
-        return "—"
-    if not np.isfinite(x):
-        return "undefined" if np.isnan(x) else ("inf" if x > 0 else "-inf")
-    if abs(x) >= 1000:
-        return f"{x:,.0f}"
-    return f"{x:.{sig}g}"
+_fmt_pct = _formatting.sentence_pct
+_fmt_num = _formatting.sentence_num
 
 
 class _Analysis:

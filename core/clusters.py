@@ -67,6 +67,7 @@ from core.bootstrap import (
     EventCells,
     ReplicateChunk,
     _points_by_threshold,
+    _prepare,
     _record_points,
     average_precision,
     event_cells,
@@ -478,25 +479,8 @@ def cluster_bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int
     ths = tuple(float(t) for t in thresholds)
     if cells is None:
         cells = event_cells(data, thresholds=ths)
-    cols = [cells.column(t) for t in ths]
-    if costs is not None and costs.get("false_negative") is None and not cells.has_costs:
-        raise InputError("costs", "false_negative is missing and the data hold no per-case miss "
-                         "costs")
-    if prevalence is not None and not 0.0 < float(prevalence) < 1.0:
-        raise InputError("prevalence", f"must lie strictly between 0 and 1, got {prevalence!r}")
-    n_rep = int(n_replicates)
-    rg = np.asarray(recall_grid, dtype=np.float64)
-    fg = np.asarray(fpr_grid, dtype=np.float64)
-    auc = np.empty(n_rep)
-    ap = np.empty(n_rep)
-    pb = np.empty((n_rep, rg.shape[0]))
-    tb = np.empty((n_rep, fg.shape[0]))
-    Ps = np.empty(n_rep)
-    Ns = np.empty(n_rep)
-    k = len(cols)
-    at_tp, at_fp = np.empty((n_rep, k)), np.empty((n_rep, k))
-    at_cost = np.empty((n_rep, k)) if costs is not None else None
-    at_pi = np.empty(n_rep)
+    cols, n_rep, rg, fg, (auc, ap, pb, tb, Ps, Ns, at_tp, at_fp, at_cost, at_pi) = _prepare(
+        cells, ths, costs, prevalence, n_replicates, recall_grid, fpr_grid)
     for ch in cluster_bootstrap_counts(data, cells, n_rep, seed, chunk=chunk, progress=progress):
         tp, fp = ch.cumulative()
         s = slice(ch.start, ch.stop)

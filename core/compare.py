@@ -76,6 +76,7 @@ from typing import Any
 import numpy as np
 from scipy import stats
 
+from core import formatting as _formatting
 from core import intervals as _iv
 from core.bootstrap import percentile_interval
 from core.choose import Choice, choose, json_safe
@@ -365,10 +366,7 @@ class Comparison:
 
 # --------------------------------------------------------------------------- formatting
 
-def _pct(x, digits=1):
-    if x is None or not np.isfinite(x):
-        return "undefined"
-    return f"{100 * x:.{digits}f} %"
+_pct = _formatting.sentence_pct
 
 
 def _pts(x, digits=1):
@@ -378,14 +376,7 @@ def _pts(x, digits=1):
     return f"{100 * x:+.{digits}f} points"
 
 
-def _num(x, sig=4):
-    if x is None:
-        return "—"
-    if not np.isfinite(x):
-        return "undefined" if np.isnan(x) else ("inf" if x > 0 else "-inf")
-    if abs(x) >= 1000:
-        return f"{x:,.0f}"
-    return f"{x:.{sig}g}"
+_num = _formatting.sentence_num
 
 
 def _per1000(x):

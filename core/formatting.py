@@ -9,7 +9,8 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["DASH", "is_undefined", "as_float", "count", "pct", "num", "threshold", "interval"]
+__all__ = ["DASH", "is_undefined", "as_float", "count", "pct", "num", "threshold", "interval",
+           "sentence_pct", "sentence_num"]
 
 DASH = "—"
 
@@ -79,3 +80,23 @@ def interval(low, high, closed: str, *, infinity: str = "∞") -> str:
 
     lo, hi = end(low), end(high)
     return f"({lo}, {hi}]" if closed == "high" else f"[{lo}, {hi})"
+
+
+# ----------------------------------------------------------------- in running text (explanations)
+
+def sentence_pct(x, digits: int = 1) -> str:
+    """A proportion inside a sentence: "12.3 %", or the word "undefined"."""
+    if x is None or not math.isfinite(x):
+        return "undefined"
+    return f"{100 * x:.{digits}f} %"
+
+
+def sentence_num(x, sig: int = 4) -> str:
+    """A number inside a sentence: 4 significant digits, whole above 1,000; "undefined" for NaN."""
+    if x is None:
+        return DASH
+    if not math.isfinite(x):
+        return "undefined" if math.isnan(x) else ("inf" if x > 0 else "-inf")
+    if abs(x) >= 1000:
+        return f"{x:,.0f}"
+    return f"{x:.{sig}g}"

@@ -1242,21 +1242,24 @@ class Demo:
     description: str
 
 
+#: Both hospital quarters share one mapping (the recheck applies the record's mapping to Q2).
+_HOSPITAL_MAPPING = Mapping(
+    score="risk_score",
+    label="deteriorated",
+    positive_label="yes",
+    groups=("site", "age_band"),
+    cluster="patient_id",
+    score_time="score_time",
+    outcome_time="outcome_time",
+    outcome_horizon_days=2.0,
+)
+
 DEMOS: dict[str, Demo] = {
     "hospital_q1": Demo(
         name="hospital_q1",
         title="Corvane Health: deterioration score, first quarter",
         file="hospital_q1.csv.gz",
-        mapping=Mapping(
-            score="risk_score",
-            label="deteriorated",
-            positive_label="yes",
-            groups=("site", "age_band"),
-            cluster="patient_id",
-            score_time="score_time",
-            outcome_time="outcome_time",
-            outcome_horizon_days=2.0,
-        ),
+        mapping=_HOSPITAL_MAPPING,
         description="Inpatient deterioration within 2 days at three invented sites; about 2 % "
         "events; patients may appear more than once.",
     ),
@@ -1264,16 +1267,7 @@ DEMOS: dict[str, Demo] = {
         name="hospital_q2",
         title="Corvane Health: deterioration score, second quarter",
         file="hospital_q2.csv.gz",
-        mapping=Mapping(
-            score="risk_score",
-            label="deteriorated",
-            positive_label="yes",
-            groups=("site", "age_band"),
-            cluster="patient_id",
-            score_time="score_time",
-            outcome_time="outcome_time",
-            outcome_horizon_days=2.0,
-        ),
+        mapping=_HOSPITAL_MAPPING,
         description="The next quarter: at the Wendlecombe site the laboratory feed fails for most "
         "encounters, the score loses part of its signal there and catches fewer events.",
     ),

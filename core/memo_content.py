@@ -28,8 +28,8 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from core import formatting as _fmt
 from core import cautions as _cautions
+from core import formatting as _fmt
 from core.memo_fields import FIELDS, LABELS, NESTED
 from core.metrics import METRIC_LABELS
 

@@ -38,8 +38,13 @@ import numpy as np
 from core.bootstrap import DEFAULT_REPLICATES, EventCells, bootstrap_counts, event_cells
 from core.errors import InputError
 from core.policy import Policy, resolve_policy
-from core.stability import (ReplicateChooser, StabilityCollector, ThresholdStability,
-                            _summarise, data_choice_column)
+from core.stability import (
+    ReplicateChooser,
+    StabilityCollector,
+    ThresholdStability,
+    _summarise,
+    data_choice_column,
+)
 
 __all__ = ["QUANTITIES", "CrossFit", "HarrellCorrection", "Optimism", "cross_fit",
            "harrell_correction", "optimism", "DEFAULT_FOLDS"]

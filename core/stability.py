@@ -36,8 +36,14 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from core import intervals as _iv
-from core.bootstrap import (DEFAULT_REPLICATES, EventCells, _check_design, bootstrap_counts,
-                            event_cells, percentile_interval)
+from core.bootstrap import (
+    DEFAULT_REPLICATES,
+    EventCells,
+    _check_design,
+    bootstrap_counts,
+    event_cells,
+    percentile_interval,
+)
 from core.costs import TIE_RTOL
 from core.policy import Policy, resolve_policy
 

@@ -52,9 +52,17 @@ from dataclasses import dataclass, field, fields
 import numpy as np
 
 from core import intervals as _iv
-from core.bootstrap import (DEFAULT_FPR_GRID, DEFAULT_RECALL_GRID, DEFAULT_REPLICATES, DESIGNS,
-                            BootstrapResult, _check_design, bootstrap, event_cells,
-                            percentile_interval)
+from core.bootstrap import (
+    DEFAULT_FPR_GRID,
+    DEFAULT_RECALL_GRID,
+    DEFAULT_REPLICATES,
+    DESIGNS,
+    BootstrapResult,
+    _check_design,
+    bootstrap,
+    event_cells,
+    percentile_interval,
+)
 from core.cautions import FEW_EVENTS
 from core.clusters import cluster_bootstrap, cluster_statement, uses_cluster_bootstrap
 from core.errors import InputError
@@ -490,7 +498,7 @@ def evidence(data, policy, *, threshold: float | None = None,
     (see :mod:`core.bootstrap`).
     """
     from core.choose import choose, evaluate
-    from core.optimism import _harrell_from, cross_fit, Optimism, QUANTITIES, _values
+    from core.optimism import QUANTITIES, Optimism, _harrell_from, _values, cross_fit
     from core.policy import resolve_policy
     from core.stability import ReplicateChooser, StabilityCollector, _summarise, data_choice_column
 

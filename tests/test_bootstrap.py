@@ -23,9 +23,20 @@ from scipy import stats
 from sklearn import metrics as skm
 
 from core import InputError, sweep
-from core.bootstrap import (DEFAULT_FPR_GRID, DEFAULT_RECALL_GRID, _Units, average_precision,
-                            bootstrap, bootstrap_counts, counts_at, event_cells, percentile_interval,
-                            precision_at_recall, roc_auc, tpr_at_fpr)
+from core.bootstrap import (
+    DEFAULT_FPR_GRID,
+    DEFAULT_RECALL_GRID,
+    _Units,
+    average_precision,
+    bootstrap,
+    bootstrap_counts,
+    counts_at,
+    event_cells,
+    percentile_interval,
+    precision_at_recall,
+    roc_auc,
+    tpr_at_fpr,
+)
 from core.dataset import Dataset
 
 R = 3000

@@ -13,7 +13,15 @@ import pytest
 
 from app import format as fmt
 from core.intake import load_demo
-from tests.browser import browser, open_page, require_browser, running_app, screenshot, wait_idle, wait_text
+from tests.browser import (
+    browser,
+    open_page,
+    require_browser,
+    running_app,
+    screenshot,
+    wait_idle,
+    wait_text,
+)
 
 pytestmark = pytest.mark.browser
 

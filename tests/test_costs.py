@@ -5,9 +5,18 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from core.costs import (cost_derived_threshold, cost_ratio_grid, cost_ratio_sensitivity, decision_curve,
-                        expected_cost, implied_cost_ratio, net_benefit, prior_shift_probability,
-                        prior_shift_threshold, treat_all_net_benefit)
+from core.costs import (
+    cost_derived_threshold,
+    cost_ratio_grid,
+    cost_ratio_sensitivity,
+    decision_curve,
+    expected_cost,
+    implied_cost_ratio,
+    net_benefit,
+    prior_shift_probability,
+    prior_shift_threshold,
+    treat_all_net_benefit,
+)
 from core.curve import sweep
 
 

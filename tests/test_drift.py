@@ -13,9 +13,20 @@ from statsmodels.stats.proportion import confint_proportions_2indep
 
 from core.calibration import calibration_report
 from core.dataset import Dataset
-from core.drift import (DEFAULT_PSI_FLOOR, PSI_SHIFTED, PSI_STABLE, ScoreBins, bin_dataset,
-                        binned_ks, calibration_drift, population_stability_index,
-                        prevalence_change, psi_band, score_bins, score_drift)
+from core.drift import (
+    DEFAULT_PSI_FLOOR,
+    PSI_SHIFTED,
+    PSI_STABLE,
+    ScoreBins,
+    bin_dataset,
+    binned_ks,
+    calibration_drift,
+    population_stability_index,
+    prevalence_change,
+    psi_band,
+    score_bins,
+    score_drift,
+)
 from core.errors import InputError
 
 

@@ -6,9 +6,16 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from statsmodels.stats.proportion import proportion_confint
 
-from core.intervals import (clopper_pearson_interval, effective_size_from_sums, flag_rate_interval,
-                            kish_effective_size, normal_quantile, npv_logit_interval,
-                            ppv_logit_interval, wilson_interval)
+from core.intervals import (
+    clopper_pearson_interval,
+    effective_size_from_sums,
+    flag_rate_interval,
+    kish_effective_size,
+    normal_quantile,
+    npv_logit_interval,
+    ppv_logit_interval,
+    wilson_interval,
+)
 
 X = np.array([0, 1, 3, 7, 15, 50, 81, 99, 100, 263])
 N = np.array([10, 10, 20, 20, 148, 100, 263, 100, 100, 263])

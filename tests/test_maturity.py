@@ -9,8 +9,14 @@ import pytest
 
 from core.dataset import Dataset
 from core.errors import InputError
-from core.maturity import (LIVE_THRESHOLD_STATEMENT, NO_MATURITY_STATEMENT, dataset_maturity,
-                           label_maturity, model_effect_statement, parse_as_of)
+from core.maturity import (
+    LIVE_THRESHOLD_STATEMENT,
+    NO_MATURITY_STATEMENT,
+    dataset_maturity,
+    label_maturity,
+    model_effect_statement,
+    parse_as_of,
+)
 
 
 def _times(*texts):

@@ -26,8 +26,14 @@ from core import sweep
 from core.choose import choose
 from core.dataset import Dataset
 from core.errors import InputError
-from core.optimism import (QUANTITIES, _split_counts, _stratified_folds, cross_fit,
-                           harrell_correction, optimism)
+from core.optimism import (
+    QUANTITIES,
+    _split_counts,
+    _stratified_folds,
+    cross_fit,
+    harrell_correction,
+    optimism,
+)
 from core.policy import Costs, Deployment, Objective, Policy, Rules
 
 MU = 1.5

@@ -10,9 +10,22 @@ from hypothesis import strategies as st
 
 from core.dataset import Dataset
 from core.errors import InputError
-from core.policy import (OBJECTIVES, PERIODS, Costs, Deployment, Fairness, Objective, Policy,
-                         PolicyError, Rules, dumps_policy, load_policy, loads_policy, resolve_policy,
-                         save_policy)
+from core.policy import (
+    OBJECTIVES,
+    PERIODS,
+    Costs,
+    Deployment,
+    Fairness,
+    Objective,
+    Policy,
+    PolicyError,
+    Rules,
+    dumps_policy,
+    load_policy,
+    loads_policy,
+    resolve_policy,
+    save_policy,
+)
 
 POLICIES = Path(__file__).resolve().parents[1] / "sample_data" / "policies"
 

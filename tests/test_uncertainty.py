@@ -28,8 +28,13 @@ from core.cautions import FEW_EVENTS
 from core.dataset import Dataset
 from core.intervals import ppv_logit_interval, wilson_interval
 from core.policy import Costs, Deployment, Objective, Policy, Rules
-from core.uncertainty import (events_for_recall_half_width, evidence, few_events_statement,
-                              point_intervals, wilson_half_width)
+from core.uncertainty import (
+    events_for_recall_half_width,
+    evidence,
+    few_events_statement,
+    point_intervals,
+    wilson_half_width,
+)
 
 
 def _altman_bland():

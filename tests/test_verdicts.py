@@ -15,8 +15,13 @@ from core.errors import InputError
 from core.groups import newcombe_interval
 from core.intervals import flag_rate_interval, ppv_logit_interval
 from core.policy import Deployment, Objective, Policy, Rules
-from core.verdicts import (DEFAULT_CONFIDENCE, judge_rule, judge_rules, overall_verdict,
-                           verdict_summary)
+from core.verdicts import (
+    DEFAULT_CONFIDENCE,
+    judge_rule,
+    judge_rules,
+    overall_verdict,
+    verdict_summary,
+)
 
 
 def _population(rng, n, prevalence=0.03, separation=2.0):

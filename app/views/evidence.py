@@ -6,8 +6,8 @@ import pandas as pd
 import streamlit as st
 
 from app import charts, state
-from app.cache import BoundedCache
 from app import format as fmt
+from app.cache import BoundedCache
 from app.widgets import caution_line
 from core.errors import InputError
 from core.policy import Policy, PolicyError, dumps_policy
