@@ -14,6 +14,7 @@ import sys
 from pathlib import Path
 
 from core.bootstrap import DEFAULT_REPLICATES
+from core.cli_columns import add_counts_arguments, check_counts_exclusive, counts_mapping_from_args
 from core.decision import DEFAULT_POLICY, ORIGINS
 from core.errors import InputError
 
@@ -37,7 +38,8 @@ def add_pick(sub) -> None:
     p.add_argument("data", metavar="DATA", help="validation scores: CSV, TSV, Parquet or Excel")
     g = p.add_argument_group("columns")
     g.add_argument("--score", required=True, metavar="COL", help="the score column")
-    g.add_argument("--label", required=True, metavar="COL", help="the outcome (label) column")
+    g.add_argument("--label", metavar="COL",
+                   help="the outcome (label) column (required unless --counts)")
     g.add_argument("--positive", metavar="VALUE",
                    help="the label value that marks the event (default: 1 when the labels are 0/1, "
                         "true when they are true/false)")
@@ -58,6 +60,7 @@ def add_pick(sub) -> None:
     g.add_argument("--case-cost", metavar="COL", help="what each missed event costs (a column)")
     g.add_argument("--lower-is-riskier", action="store_true",
                    help="a lower score means higher risk (flag when score <= threshold)")
+    add_counts_arguments(p.add_argument_group("count table (instead of one row per case)"))
     a = p.add_argument_group("analysis")
     a.add_argument("--design", choices=("cohort", "case-control"), default="cohort",
                    help="how the validation cases were sampled (default: cohort)")
@@ -97,6 +100,13 @@ def mapping_from_args(args, raw=None):
     from core.dataset import Mapping
     from core.intake import label_values
 
+    if getattr(args, "counts", False):
+        return counts_mapping_from_args(args)
+    check_counts_exclusive(args)
+    if not args.label:
+        raise InputError("--label", "is required: the outcome (label) column of one row per case "
+                                    "(or give --counts with --events and --non-events for a count "
+                                    "table)")
     positive = args.positive
     if positive is None and raw is not None and args.label in raw.frame.columns:
         vals = label_values(raw, args.label)
@@ -125,6 +135,10 @@ def _load(args):
     from core.intake import _mapped_columns, load_dataset, read_table
 
     mapping = mapping_from_args(args)
+    if mapping.kind == "counts":
+        from core.intake import load_count_table
+
+        return load_count_table(args.data, mapping, sheet=args.sheet)
     if mapping.positive_label is not None:
         return load_dataset(args.data, mapping, sheet=args.sheet)
     raw = read_table(args.data, sheet=args.sheet, columns=_mapped_columns(mapping))

@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from core.cli_columns import add_counts_arguments, check_counts_exclusive
 from core.errors import InputError
 
 __all__ = ["add_recheck", "override_from_args", "recheck_summary_lines", "run_recheck"]
@@ -58,6 +59,9 @@ def add_recheck(sub) -> None:
     g.add_argument("--score-time", metavar="COL", help="when each score was made")
     g.add_argument("--outcome-time", metavar="COL", help="when each event happened")
     g.add_argument("--case-cost", metavar="COL", help="what each missed event costs (a column)")
+    add_counts_arguments(p.add_argument_group(
+        "count table (instead of one row per case; --events and --non-events are required unless "
+        "the record's data were a count table)"))
     a = p.add_argument_group("recheck")
     a.add_argument("--as-of", metavar="DATE",
                    help="label maturity as of this date (ISO 8601; default: today)")
@@ -74,12 +78,34 @@ def add_recheck(sub) -> None:
     p.set_defaults(func=run_recheck)
 
 
-def override_from_args(args) -> dict:
-    """The mapping fields the options change (None: keep the record's)."""
+def override_from_args(args, record: dict | None = None) -> dict:
+    """The mapping fields the options change (None: keep the record's).
+
+    With ``--counts`` the new data are a count table: the mapping becomes
+    ``kind="counts"`` and the record's per-case columns (label, event value,
+    weight, case cost, cluster, times) are cleared. ``--events`` and
+    ``--non-events`` may be left out only when the record's own data were a
+    count table (``record`` given), whose columns are then kept.
+    """
+    base = ((record or {}).get("data") or {}).get("mapping") or {}
+    was_counts = base.get("kind") == "counts"
+    check_counts_exclusive(args, need_columns=not was_counts)
     over = {field: getattr(args, dest) for dest, field in _OVERRIDES.items()
             if getattr(args, dest) is not None}
     if args.group is not None:
         over["groups"] = tuple(args.group)
+    if getattr(args, "counts", False):
+        over.update({"kind": "counts", "label": None, "positive_label": None, "weight": None,
+                     "weight_kind": None, "case_cost": None, "cluster": None, "score_time": None,
+                     "outcome_time": None, "outcome_horizon_days": None})
+        for dest, field in (("events", "events"), ("non_events", "non_events"),
+                            ("event_cost", "event_cost"), ("events_sq", "events_sq"),
+                            ("non_events_sq", "non_events_sq")):
+            if getattr(args, dest, None) is not None:
+                over[field] = getattr(args, dest)
+        if not was_counts:
+            for field in ("event_cost", "events_sq", "non_events_sq"):
+                over.setdefault(field, None)
     return over
 
 
@@ -101,7 +127,7 @@ def run_recheck(args) -> int:
 
         source = read_table(args.data, sheet=args.sheet)
     result = recheck(record, source, as_of=args.as_of, live=args.live,
-                     mapping_override=override_from_args(args), n_replicates=reps, seed=seed)
+                     mapping_override=override_from_args(args, record), n_replicates=reps, seed=seed)
     rec = build_recheck_record(result)
     written = []
     if args.out:
