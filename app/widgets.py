@@ -14,7 +14,7 @@ TILES = (
     ("recall", "Recall", fmt.pct),
     ("specificity", "Specificity", fmt.pct),
     ("flagged_per_1000", "Flagged per 1,000", lambda v: fmt.num(v, 1)),
-    ("nne", "Number needed to evaluate", lambda v: fmt.num(v, 1)),
+    ("nne", "Flags per event", lambda v: fmt.num(v, 1)),
 )
 
 

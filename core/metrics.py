@@ -66,7 +66,7 @@ METRIC_LABELS = {
     "youden_j": ("Youden's J", "recall + specificity - 1"),
     "flag_rate": ("Flag rate", "(TP + FP) / all cases"),
     "flagged_per_1000": ("Flagged per 1,000", "1,000 x flag rate"),
-    "nne": ("Number needed to evaluate", "1 / precision: flagged cases reviewed per event found"),
+    "nne": ("Number needed to evaluate", "1 / precision (number needed to evaluate): flagged cases reviewed per event found"),
     "lift": ("Lift", "precision / prevalence"),
 }
 

@@ -39,7 +39,7 @@ def expected_tiles(point) -> dict[str, str]:
     m = point.metrics
     return {"Precision": fmt.pct(m["precision"]), "Recall": fmt.pct(m["recall"]),
             "Specificity": fmt.pct(m["specificity"]), "Flagged per 1,000": fmt.num(m["flagged_per_1000"], 1),
-            "Number needed to evaluate": fmt.num(m["nne"], 1)}
+            "Flags per event": fmt.num(m["nne"], 1)}
 
 
 def test_opens_on_the_demo_with_no_upload(demo):

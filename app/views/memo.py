@@ -316,13 +316,20 @@ def _fields_section() -> None:
                  on_change=_on_sample, format_func=lambda s: s or "(choose)")
     if st.session_state.get(K + "fields_error"):
         st.error(st.session_state[K + "fields_error"])
+    names = _all_field_names()
+    study = [n for n in names if not n.startswith("sign_off.")]
+    sign_off = [n for n in names if n.startswith("sign_off.")]
     cols = st.columns(2)
-    i = 0
-    for name in _all_field_names():
+    boxes = [cols[i % 2] for i in range(len(study))]
+    if sign_off:
+        st.markdown("**Sign-off**")
+        short = [n for n in sign_off if n not in _LONG]
+        sign_off = short + [n for n in sign_off if n in _LONG]
+        boxes += list(st.columns(len(short))) if short else []
+        boxes += [st.container() for n in sign_off if n in _LONG]
+    for name, box in zip(study + sign_off, boxes):
         label, help_text = LABELS[name]
         key = _field_key(name)
-        box = cols[i % 2]
-        i += 1
         if name == "validation_independence":
             box.selectbox(label, [""] + list(INDEPENDENCE), key=key, help=help_text,
                           format_func=lambda v: v or "not stated")
