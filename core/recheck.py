@@ -28,8 +28,14 @@ overridden when columns were renamed) and answers, in this order:
    (:func:`core.drift.score_drift`) and of calibration
    (:func:`core.drift.calibration_drift`).
 6. **The same policy now**: :func:`core.choose.choose` on the new data with
-   the record's resolved policy (its deployment prevalence included), beside
-   the approved threshold on the new data (:func:`core.choose.evaluate`).
+   the record's resolved policy (its deployment prevalence included) or a
+   changed policy the user gives (``policy=``; what changed is listed key by
+   key, old -> new), beside the approved threshold on the new data
+   (:func:`core.choose.evaluate`), with the difference in threshold, counts,
+   cost and flagged cases per period (median, quantile, maximum and share
+   over capacity over the periods of the score-time column, against the
+   approval's). A changed policy touches only this part: the verdicts of
+   steps 3-5 stay judged against the record's policy (the approval).
 
 :func:`build_recheck_record` turns the :class:`RecheckResult` into the sealed
 recheck record (schema ``fulcrum.recheck/1``), which names the decision
@@ -65,8 +71,12 @@ __all__ = [
     "exit_code",
     "load_recheck",
     "loads_recheck",
+    "VERDICT_BASIS",
+    "policy_changes",
+    "rechoose",
     "recheck",
     "recheck_without_timestamps",
+    "record_policy",
     "write_recheck",
 ]
 
@@ -177,6 +187,7 @@ class RecheckResult:
     summary: str
     statements: tuple[str, ...]
     mapping_override: dict = field(default_factory=dict)
+    overlaps: dict | None = None
 
     @property
     def record_sha256(self) -> str:
@@ -406,14 +417,146 @@ def _point_now(p, rp_period) -> dict:
         "precision": p.deployment.get("precision"), "flag_rate": p.deployment.get("flag_rate"),
         "cost_per_case": p.cost_per_case, "cost_per_period": p.cost_per_period,
         "flagged_per_period": p.flagged_per_period, "period": rp_period,
+        "per_period": None if p.capacity is None else dict(p.capacity),
         "meets_rules": p.meets_rules, "rules_met": {r.name: r.met for r in p.rules},
     })
 
 
-def _choice_now(record, ds, policy, t) -> dict:
+# =========================================================================== a changed policy
+
+#: The wording, in record, memo and page, of what a changed policy does and does not touch.
+VERDICT_BASIS = ("The rule verdicts at the approved threshold are judged against the decision "
+                 "record's policy (the approval); a changed policy only changes what would be "
+                 "chosen now.")
+
+
+def _flat_resolved(resolved: dict) -> dict:
+    """``section.key -> value`` of a resolved policy's nested dict (its ``to_dict()``)."""
+    return {f"{sec}.{key}": e.get("value") for sec, entries in (resolved or {}).items()
+            for key, e in (entries or {}).items()}
+
+
+def _same(a, b) -> bool:
+    if isinstance(a, (int, float)) and isinstance(b, (int, float)) \
+            and not isinstance(a, bool) and not isinstance(b, bool):
+        return math.isclose(float(a), float(b), rel_tol=1e-12, abs_tol=0.0)
+    if isinstance(a, (list, tuple)) and isinstance(b, (list, tuple)):
+        return list(a) == list(b)
+    return a == b
+
+
+def policy_changes(record: dict, policy, dataset) -> list[dict]:
+    """What a policy changes against the record's resolved policy, key by key.
+
+    Both sides are compared as resolved values (``section.key``, defaults
+    included): the record's as stored at approval, the given policy as
+    resolved on ``dataset`` (the new data) -- so a policy file that leaves the
+    deployment prevalence out shows the change to the new data's own
+    prevalence. Returns ``[{"key", "old", "new", "source"}]`` in key order
+    (``None`` where a side does not set the key; ``source`` is where the new
+    value comes from). An empty list means the same policy.
+    """
+    from core.policy import resolve_policy
+
+    old = _flat_resolved(record["policy"]["resolved"])
+    rp = resolve_policy(policy, dataset)
+    new = {k: (list(v) if isinstance(v, tuple) else v) for k, v in rp.values().items()}
+    out = []
+    for key in sorted(set(old) | set(new)):
+        a, b = old.get(key), new.get(key)
+        if a is None and b is None:
+            continue
+        if a is not None and b is not None and _same(a, b):
+            continue
+        out.append({"key": key, "old": a, "new": b,
+                    "source": None if b is None else rp.sources.get(key, "default")})
+    return json_safe(out)
+
+
+def _as_policy(policy):
+    """A Policy from a Policy or a policy file's nested dict (validated, PolicyError names it)."""
+    from core.policy import Policy
+
+    if isinstance(policy, Policy):
+        return policy
+    if isinstance(policy, dict):
+        return Policy.from_dict(policy, source="given for the recheck")
+    raise InputError("policy", f"must be a Policy or a policy file's nested dict, got "
+                     f"{type(policy).__name__}")
+
+
+def record_policy(record: dict):
+    """The record's policy with its resolved deployment prevalence and volume fixed in.
+
+    This is the policy the recheck uses for "what the same policy would choose
+    now" unless another is given, and the one a policy editor starts from.
+    """
+    return _record_policy(record)
+
+
+def _change_text(c: dict) -> str:
+    def v(x):
+        if x is None:
+            return "not set"
+        if isinstance(x, float):
+            return f"{x:.6g}"
+        if isinstance(x, list):
+            return "[" + ", ".join(map(str, x)) + "]"
+        return str(x)
+
+    return f"{c['key']} {v(c['old'])} -> {v(c['new'])}"
+
+
+_PER_PERIOD_KEYS = ("median", "quantile", "max", "mean", "share_over")
+
+
+def _per_period(approval_cap, approved_cap, chosen_cap, basis: str) -> dict | None:
+    """Flagged cases per period at approval, at the approved threshold now and at the choice now.
+
+    Each side is the distribution over the periods of its own data (median,
+    the policy's quantile, maximum, mean, share of periods over capacity), as
+    :meth:`core.capacity.PeriodFlags.summary` gives it; the differences are
+    new - approval at the approved threshold, and choice now - approved
+    threshold now on the new data. Sides with another period length are not
+    differenced.
+    """
+    if approval_cap is None and approved_cap is None:
+        return None
+
+    def diff(x, y):
+        if not x or not y or x.get("period") != y.get("period"):
+            return None
+        return {k: (None if x.get(k) is None or y.get(k) is None else y[k] - x[k])
+                for k in _PER_PERIOD_KEYS}
+
+    rows = [{"point": "approved threshold, approval data", **(approval_cap or {})},
+            {"point": "approved threshold, new data", **(approved_cap or {})}]
+    if chosen_cap is not None:
+        rows.append({"point": basis + ", new data", **chosen_cap})
+    note = ("Flags per period from the score-time column: every period from the first to the "
+            "last counts (periods without cases as 0), rescaled to the policy's deployment "
+            "prevalence and volume as at approval; the quantile is empirical (no sampling "
+            "bound).")
+    if approval_cap and approved_cap and approval_cap.get("period") != approved_cap.get("period"):
+        note += (f" The approval counted per {approval_cap.get('period')}, the policy used now per "
+                 f"{approved_cap.get('period')}: those two are not differenced.")
+    return json_safe({"rows": rows, "new_minus_approval": diff(approval_cap, approved_cap),
+                      "chosen_minus_approved": diff(approved_cap, chosen_cap), "note": note})
+
+
+def _choice_now(record, ds, policy=None, t=None, *, changes=None) -> dict:
+    """What the policy (the record's unless ``policy`` is given) would choose on ``ds``."""
     from core.choose import choose, evaluate
     from core.policy import resolve_policy
 
+    changed = policy is not None
+    if policy is None:
+        policy = _record_policy(record)
+    if t is None:
+        t = _f(record["threshold"])
+    if changes is None:
+        changes = policy_changes(record, policy, ds) if changed else []
+    changed = bool(changes)
     rp = resolve_policy(policy, ds)
     at_approved = evaluate(ds, policy, t).point
     ch = choose(ds, policy)
@@ -427,9 +570,17 @@ def _choice_now(record, ds, policy, t) -> dict:
         "cost_per_case": m["expected_cost"].get("per_case"),
         "cost_per_period": m["expected_cost"].get("per_period"),
         "flagged_per_period": per.get("flagged"), "period": wl.get("period"),
+        "per_period": wl.get("capacity"),
     })
-    out = {"policy_note": ("The record's resolved policy (its deployment prevalence "
-                           f"{rp.prevalence:.4g} included) applied to the new data."),
+    if changed:
+        note = ("A changed policy applied to the new data (" + "; ".join(_change_text(c)
+                for c in changes) + f"; deployment prevalence now {rp.prevalence:.4g}). "
+                + VERDICT_BASIS)
+    else:
+        note = ("The record's resolved policy (its deployment prevalence "
+                f"{rp.prevalence:.4g} included) applied to the new data.")
+    out = {"policy_note": note, "policy_source": "changed" if changed else "record",
+           "policy": policy.to_dict(), "changes": list(changes), "verdict_basis": VERDICT_BASIS,
            "approval": approval, "approved_threshold_now": _point_now(at_approved, rp.period),
            "chosen_now": None if ch.point is None else _point_now(ch.point, rp.period),
            "unconstrained_now": None if ch.unconstrained is None
@@ -439,6 +590,9 @@ def _choice_now(record, ds, policy, t) -> dict:
     out["difference_basis"] = ("the policy's choice now" if ch.point is not None else
                                "the objective's best point now, ignoring the rules (none meets "
                                "them all)")
+    basis = "chosen now" if ch.point is not None else "objective's best now (rules ignored)"
+    out["flags_per_period"] = _per_period(approval.get("per_period"), at_approved.capacity,
+                                          None if n is None else n.capacity, basis)
     if n is not None:
         a = at_approved
 
@@ -456,13 +610,15 @@ def _choice_now(record, ds, policy, t) -> dict:
         })
     else:
         out["difference"] = None
+    which = "The changed policy" if changed else "The same policy"
     if ch.point is not None and ch.point.index == at_approved.index:
-        out["statement"] = "The same policy picks the approved point on the new data."
+        out["statement"] = f"{which} picks the approved point on the new data."
     elif ch.point is not None:
-        out["statement"] = (f"On the new data the same policy would choose threshold "
-                            f"{float(ch.point.threshold)!r} instead of {t!r}.")
+        out["statement"] = (f"On the new data {which[0].lower() + which[1:]} would choose "
+                            f"threshold {float(ch.point.threshold)!r} instead of {t!r}.")
     else:
-        out["statement"] = ("On the new data no threshold meets every rule of the policy: "
+        out["statement"] = (f"On the new data no threshold meets every rule of "
+                            f"{'the changed' if changed else 'the'} policy: "
                             + " ".join(ch.infeasible))
         if ch.unconstrained is not None:
             out["statement"] += (f" Ignoring the rules, its objective would pick threshold "
@@ -470,11 +626,154 @@ def _choice_now(record, ds, policy, t) -> dict:
     return json_safe(out)
 
 
+def rechoose(result: RecheckResult, policy=None) -> RecheckResult:
+    """The same recheck with "what the policy would choose now" redone for ``policy``.
+
+    ``policy`` (a :class:`core.policy.Policy` or a policy file's nested dict,
+    validated) replaces the record's resolved policy for that part only; None
+    goes back to the record's. The rule verdicts, subgroups, drift and
+    calibration stay as they were: they are judged against the record's policy
+    (the approval). Nothing is re-read or re-judged.
+    """
+    pol = None if policy is None else _as_policy(policy)
+    now = _choice_now(result.record, result.mature, pol, result.threshold)
+    return replace(result, now=now)
+
+
+# =========================================================================== overlapping findings
+
+def _shortfall(v) -> float:
+    """How far a failing verdict's favourable bound lies on the wrong side of its limit."""
+    if v.name.startswith("min_"):
+        return v.limit - (v.upper if v.upper is not None else v.value)
+    return (v.lower if v.lower is not None else v.value) - v.limit
+
+
+def _where(key) -> str:
+    return f"{key[0]} {key[1]}"
+
+
+def _group_overlaps(mature, t, rules, kw, groups) -> dict | None:
+    """Failing groups of different columns that share cases: which finding leads.
+
+    Groups of two columns overlap (a site's cases fall into every age band),
+    so one drifted site can make age bands fail too. For every failing group
+    A and every failing group B of another column, B is judged again on its
+    cases outside A (the same rules, bounds and confidence). The *lead* is the
+    failing group whose removal clears the most failures elsewhere (ties: the
+    larger shortfall below the limit); the others are reported with the share
+    of their events that are the lead's and their verdicts without the lead's
+    cases. None when fewer than two columns have a failing group or no
+    removal clears any failure.
+    """
+    failing = [g for g in groups if any(v.verdict == "fails" for v in g.verdicts)]
+    if len({g.column for g in failing}) < 2:
+        return None
+    masks = {g.key: np.asarray(mature.groups[g.column], dtype=object) == g.group for g in failing}
+    trials = {}
+    for a in failing:
+        for b in failing:
+            if b.column == a.column:
+                continue
+            names = {v.name: rules[v.name] for v in b.verdicts if v.verdict == "fails"}
+            inside = masks[b.key]
+            both = inside & masks[a.key]
+            outside = inside & ~masks[a.key]
+            ev_b = _subset(mature, inside).curve().n_events
+            ev_ab = _subset(mature, both).curve().n_events if both.any() else 0.0
+            if outside.any():
+                vs, _ = _judge(_subset(mature, outside), t, names, margins=None, overall=False, **kw)
+            else:
+                vs = ()
+            cleared = bool(vs) and all(v.verdict != "fails" for v in vs)
+            trials[(a.key, b.key)] = {
+                "group": f"{b.column} = {b.group}", "column": b.column, "value": b.group,
+                "share_of_events": ev_ab / ev_b if ev_b > 0 else math.nan,
+                "share_of_cases": float(both.sum()) / float(inside.sum()) if mature.kind == "rows"
+                else None,
+                "verdicts_without_lead": [v.to_dict() for v in vs], "cleared": cleared,
+                "at_approval": {v.name: (b.reference_values.get(v.name.split("_", 1)[1]) or {})
+                                .get("value") for v in b.verdicts if v.verdict == "fails"}}
+    best, best_key = None, None
+    for a in failing:
+        n_cleared = sum(1 for (ka, _), tr in trials.items() if ka == a.key and tr["cleared"])
+        worst = max(_shortfall(v) for v in a.verdicts if v.verdict == "fails")
+        key = (n_cleared, worst)
+        if best_key is None or key > best_key:
+            best, best_key = a, key
+    if best is None or best_key[0] == 0:
+        return None
+    others = [tr for (ka, _), tr in trials.items() if ka == best.key]
+    lead_fails = [v for v in best.verdicts if v.verdict == "fails"]
+    lead = f"{best.column} {best.group}"
+    head = "; ".join(f"{RULE_SHORT.get(v.name, v.name)} {_pct_text(v.name, v.value)}"
+                     for v in lead_fails)
+    cleared = [o for o in others if o["cleared"]]
+    kept = [o for o in others if not o["cleared"]]
+
+    def without(o, verdict=True):
+        return ", ".join(f"{RULE_SHORT.get(v['name'], v['name'])} "
+                         f"{_pct_text(v['name'], v['value'])}"
+                         + (f" ({v['verdict']})" if verdict else "")
+                         for v in o["verdicts_without_lead"])
+
+    def name(o):
+        return o["group"].replace(" = ", " ")
+
+    text = (f"The leading subgroup finding is {lead} ({head}, fails). The failures at "
+            + _and([name(o) for o in others])
+            + f" overlap its cases ({_and([_share(o['share_of_events']) for o in others])} of "
+            f"their events are {best.group}'s).")
+    if cleared:
+        text += (f" Without {best.group}'s cases: " + "; ".join(
+            f"{name(o)} {without(o)}" for o in cleared)
+            + (" -- it does not fail on its own." if len(cleared) == 1 else
+               " -- they do not fail on their own."))
+    for o in kept:
+        then = [f"{RULE_SHORT.get(k, k)} {_pct_text(k, x)}" for k, x in o["at_approval"].items()
+                if x is not None and k in RULE_SHORT]
+        text += (f" {name(o)} still fails without {best.group}'s cases "
+                 f"({without(o, False)}): a finding of its own"
+                 + (f", there at approval already ({', '.join(then)} then)." if then else "."))
+    one = len(cleared) == 1
+    short = (f"the failure{'' if one else 's'} at {_and([name(o) for o in cleared])} overlap"
+             f"{'s' if one else ''} {lead} (without its cases {'it does' if one else 'they do'} "
+             "not fail)")
+    return json_safe({"lead": f"{best.column} = {best.group}", "lead_column": best.column,
+                      "lead_value": best.group, "others": others, "statement": text,
+                      "short": short, "method": (
+                          "each failing group of another column judged again on its cases "
+                          "outside the lead group, with the same rules, bounds and confidence; "
+                          "the lead is the failing group whose removal clears the most other "
+                          "failures (ties: the larger shortfall)")})
+
+
+RULE_SHORT = {"min_recall": "recall", "min_precision": "precision",
+              "min_specificity": "specificity", "max_flag_rate": "flag rate"}
+
+
+def _pct_text(name, x) -> str:
+    if x is None or not np.isfinite(x):
+        return "undefined"
+    return f"{100 * x:.1f} %"
+
+
+def _share(x) -> str:
+    return "—" if x is None or not np.isfinite(x) else f"{100 * x:.0f} %"
+
+
+def _and(items) -> str:
+    items = list(items)
+    if len(items) <= 1:
+        return "".join(items)
+    return ", ".join(items[:-1]) + " and " + items[-1]
+
+
 # =========================================================================== the pipeline
 
 def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = False,
-            mapping_override: dict | None = None, n_replicates: int = 2000, seed: int = 0,
-            progress=None) -> RecheckResult:
+            mapping_override: dict | None = None, policy=None, n_replicates: int = 2000,
+            seed: int = 0, progress=None) -> RecheckResult:
     """Recheck a decision record's threshold on new labelled scores (see the module docstring).
 
     Parameters
@@ -493,6 +792,14 @@ def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = Fal
         approved threshold was live.
     mapping_override : dict, optional
         Mapping fields that differ from the record's (renamed columns).
+    policy : Policy or dict, optional
+        A changed policy for "what the policy would choose now" only (a
+        :class:`core.policy.Policy` or a policy file's nested dict, validated
+        by :mod:`core.policy`; a :class:`core.policy.PolicyError` lists its
+        problems). None: the record's resolved policy. The rule verdicts stay
+        judged against the record's policy (the approval); the record's
+        ``policy_now`` says which policy was used and what changed
+        (:func:`policy_changes`). :func:`rechoose` redoes that part alone.
     n_replicates, seed, progress
         For the subgroup table of the new data (:func:`core.groups.subgroup_report`:
         per-group recall, precision and specificity with intervals, cluster
@@ -506,6 +813,7 @@ def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = Fal
     from core.verdicts import DEFAULT_CONFIDENCE, overall_verdict, verdict_summary
 
     check_record(record)
+    policy_now = None if policy is None else _as_policy(policy)
     mapping, over = _mapping(record, mapping_override)
     ds = _load(record, new_dataset_or_source, mapping)
     _check_fit(record, ds)
@@ -577,11 +885,27 @@ def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = Fal
     cal_new = calibration_report(mature, confidence=float(record["calibration"].get("confidence")
                                                           or 0.95))
     cal = calibration_drift(record["calibration"], cal_new)
-    now = _choice_now(record, mature, _record_policy(record), t)
+    now = _choice_now(record, mature, policy_now, t)
 
+    for g in groups:  # a failure that was there at approval already is not a change
+        for v in g.verdicts:
+            ref = (g.reference_values.get(v.name.split("_", 1)[1]) or {}).get("value")
+            if v.verdict == "fails" and v.name in ("min_recall", "min_specificity") \
+                    and ref is not None and ref < v.limit:
+                notes.append(f"{RULE_SHORT[v.name].capitalize()} at {g.column} {g.group} was "
+                             f"below the limit {_pct_text(v.name, v.limit)} at approval already "
+                             f"({_pct_text(v.name, ref)} on the approval data; the approval "
+                             "judged the rule overall): this failure is not a change since "
+                             "approval.")
+    overlaps = _group_overlaps(mature, t, rules, kw, groups)
+    if overlaps is not None:  # the leading finding first, in the summary and the tables
+        lead = (overlaps["lead_column"], overlaps["lead_value"])
+        groups = sorted(groups, key=lambda g: (g.column != lead[0], g.key != lead))
     gmap = {g.key: g.verdicts for g in groups}
     overall = overall_verdict(verdicts, gmap)
     summary = verdict_summary(verdicts, gmap)
+    if overlaps is not None:
+        summary += "; " + overlaps["short"]
     st = [mat.statement]
     eff = model_effect_statement(live)
     if eff:
@@ -595,7 +919,8 @@ def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = Fal
         confidence=confidence, confidence_note=conf_note, counts=counts, verdicts=tuple(verdicts),
         groups=tuple(groups), new_groups=tuple(new_only), vanished_groups=gone,
         group_notes=tuple(notes), fairness=fairness, comparisons=comparisons, drift=drift, calibration=cal, now=now,
-        overall=overall, summary=summary, statements=tuple(st), mapping_override=over)
+        overall=overall, summary=summary, statements=tuple(st), mapping_override=over,
+        overlaps=overlaps)
 
 
 def exit_code(result: RecheckResult) -> int:
@@ -654,7 +979,7 @@ def build_recheck_record(result: RecheckResult, *, created_utc: str | None = Non
         "rules": [v.to_dict() for v in r.verdicts],
         "groups": {"compared": [g.to_dict() for g in r.groups], "new": list(r.new_groups),
                    "vanished": list(r.vanished_groups), "notes": list(r.group_notes),
-                   "fairness": r.fairness},
+                   "fairness": r.fairness, "overlaps": r.overlaps},
         "comparison": {"method": COMPARISON_METHOD,
                        "metrics": [c.to_dict() for c in r.comparisons]},
         "drift": r.drift.to_dict(),

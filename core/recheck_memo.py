@@ -20,6 +20,9 @@ from core import cautions
 from core.memo_content import Block, fmt_count, fmt_num, fmt_pct
 
 __all__ = [
+    "per_period_header",
+    "per_period_rows",
+    "policy_value",
     "recheck_blocks",
     "recheck_markdown",
     "recheck_pdf",
@@ -54,6 +57,48 @@ def rule_line(v: dict) -> str:
             f"{_bounds(v)} -- {v['verdict'].upper()}")
 
 
+def policy_value(x) -> str:
+    """A policy value in a change table ("not set" when a side leaves it out)."""
+    if x is None:
+        return "not set"
+    if isinstance(x, bool):
+        return str(x).lower()
+    if isinstance(x, float):
+        return f"{x:.6g}"
+    if isinstance(x, list):
+        return ", ".join(map(str, x)) or "(none)"
+    return str(x)
+
+
+def per_period_header(fpp: dict) -> tuple:
+    """The header of the flagged-cases-per-period table (the policy's quantile named)."""
+    q = next((r.get("quantile_level") for r in fpp["rows"] if r.get("quantile_level")), 0.9)
+    return ("Point", "Periods", "Median", f"{q:g}-quantile", "Maximum", "Mean",
+            "Share over capacity")
+
+
+def per_period_rows(fpp: dict) -> list[tuple]:
+    """Rows of that table: each point's distribution, then the differences."""
+    def share(x):
+        return "—" if x is None else fmt_pct(x, 1)
+
+    out = []
+    for r in fpp["rows"]:
+        per = r.get("period")
+        out.append((r["point"] + (f" (per {per})" if per else ""), fmt_count(r.get("n_periods")),
+                    fmt_num(r.get("median"), 1), fmt_num(r.get("quantile"), 1),
+                    fmt_num(r.get("max"), 1), fmt_num(r.get("mean"), 1),
+                    share(r.get("share_over"))))
+    for label, key in (("Difference, approved threshold: new - approval", "new_minus_approval"),
+                       ("Difference, new data: choice now - approved", "chosen_minus_approved")):
+        d = fpp.get(key)
+        if d:
+            out.append((label, "", _signed_num(d.get("median")), _signed_num(d.get("quantile")),
+                        _signed_num(d.get("max")), _signed_num(d.get("mean")),
+                        _signed_pct(d.get("share_over"))))
+    return out
+
+
 def recheck_title(rec: dict) -> str:
     t = rec["decision_record"].get("memo_title")
     return "Recheck of an approved threshold" + (f": {t}" if t else "")
@@ -61,6 +106,12 @@ def recheck_title(rec: dict) -> str:
 
 def _pct(x):
     return fmt_pct(x, 2 if x is not None and abs(x) < 0.1 else 1)
+
+
+def _signed_num(x) -> str:
+    if x is None:
+        return "—"
+    return f"{x:+,.1f}"
 
 
 def _signed_pct(x) -> str:
@@ -79,7 +130,12 @@ def recheck_blocks(rec: dict) -> list[Block]:
         Block("subtitle", f"Recheck of decision record {dr['sha256']} (created {dr['created_utc']}) "
                           f"on {d.get('file_name') or 'new data'}; as of {rec['as_of']}; "
                           f"written {rec['created_utc']} by Fulcrum {rec['software_version']}."),
-        Block("strong", f"{rec['summary']} Overall: {rec['overall_verdict']}."),
+        Block("strong", f"{rec['summary'].rstrip('.')}. Overall: {rec['overall_verdict']}."),
+    ]
+    ov = (rec.get("groups") or {}).get("overlaps")
+    if ov:
+        b.append(Block("p", ov["statement"]))
+    b += [
         Block("p", f"Approved threshold: flag when score {op} {rec['threshold']}. Rules judged as "
                    f"at approval: one-sided bounds at confidence {rec['confidence']:g} "
                    f"({rec['confidence_note']}); holds / fails / unclear, never from a point "
@@ -132,6 +188,8 @@ def recheck_blocks(rec: dict) -> list[Block]:
     b.append(Block("p", "New groups (not in the record): " + (", ".join(g["new"]) or "none") + ". "
                    "Vanished groups (in the record, not in the new data): "
                    + (", ".join(g["vanished"]) or "none") + "."))
+    if ov:
+        b.append(Block("p", ov["statement"] + " Method: " + ov["method"] + "."))
     for n in g.get("notes") or []:
         b.append(Block("p", n))
     fair = g.get("fairness")
@@ -178,9 +236,20 @@ def recheck_blocks(rec: dict) -> list[Block]:
     bad = [x for x in cal.get("groups") or [] if x.get("verdict") != "holds"]
     for x in bad:
         b.append(Block("p", x["statement"]))
-    b.append(Block("h1", "What the same policy would choose now"))
     now = rec["policy_now"]
+    changed = now.get("policy_source") == "changed"
+    b.append(Block("h1", "What a changed policy would choose now" if changed else
+                   "What the same policy would choose now"))
     b.append(Block("p", now["policy_note"] + " " + now["statement"]))
+    if changed:
+        b.append(Block("table", header=("Policy key", "Record's policy (approval)", "Used now",
+                                        "Source now"),
+                       rows=tuple((c["key"], policy_value(c["old"]), policy_value(c["new"]),
+                                   c.get("source") or "—") for c in now.get("changes") or []),
+                       widths=(0.3, 0.25, 0.25, 0.2)))
+    elif now.get("verdict_basis"):
+        b.append(Block("p", "The rule verdicts above and this choice use the same policy: the "
+                            "record's."))
 
     def row(name, p):
         if not p:
@@ -204,6 +273,12 @@ def recheck_blocks(rec: dict) -> list[Block]:
     b.append(Block("table", header=("Point", "Threshold", "Flagged cases", "Recall",
                                     f"Cost per {period}", f"Flagged per {period}"),
                    rows=tuple(rows), widths=(0.3, 0.12, 0.14, 0.12, 0.16, 0.16)))
+    fpp = now.get("flags_per_period")
+    if fpp:
+        b.append(Block("h2", "Flagged cases per period"))
+        b.append(Block("table", header=per_period_header(fpp), rows=tuple(per_period_rows(fpp)),
+                       widths=(0.3, 0.1, 0.12, 0.12, 0.12, 0.12, 0.12)))
+        b.append(Block("p", fpp["note"]))
     b.append(Block("h1", "Integrity"))
     b.append(Block("kv", rows=(("Decision record sha256", dr["sha256"]),
                                ("Recheck record sha256", rec["integrity"]["sha256"]),
