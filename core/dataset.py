@@ -34,6 +34,13 @@ class Mapping:
     value that marks the event) are required. For ``kind="counts"``:
     ``score``, ``events`` and ``non_events`` (optionally ``event_cost`` and
     ``events_sq`` / ``non_events_sq``).
+
+    ``extra_scores`` (rows only) names other score columns on the same rows,
+    compared with ``score`` (the reference, the current model) by
+    :mod:`core.compare`; ``extra_lower_is_riskier`` is the subset of them
+    where a lower value means higher risk. Both are left out of
+    :meth:`to_dict` when empty, so a mapping without extra scores keeps its
+    fingerprint.
     """
 
     score: str
@@ -55,6 +62,8 @@ class Mapping:
     event_cost: str | None = None
     events_sq: str | None = None
     non_events_sq: str | None = None
+    extra_scores: tuple[str, ...] = ()
+    extra_lower_is_riskier: tuple[str, ...] = ()
 
     @classmethod
     def from_dict(cls, d: dict) -> Mapping:
@@ -71,6 +80,14 @@ class Mapping:
             kw["groups"] = (kw["groups"],)
         else:
             kw["groups"] = tuple(str(g) for g in kw["groups"])
+        for name in ("extra_scores", "extra_lower_is_riskier"):
+            v = kw.get(name)
+            if v is None:
+                kw.pop(name, None)
+            elif isinstance(v, str):
+                kw[name] = (v,) if v.strip() else ()
+            else:
+                kw[name] = tuple(str(c) for c in v)
         for name in _COLUMN_FIELDS:
             if isinstance(kw.get(name), str) and not kw[name].strip():
                 kw[name] = None
@@ -79,6 +96,11 @@ class Mapping:
     def to_dict(self) -> dict:
         d = asdict(self)
         d["groups"] = list(self.groups)
+        for name in ("extra_scores", "extra_lower_is_riskier"):
+            if getattr(self, name):
+                d[name] = list(getattr(self, name))
+            else:
+                del d[name]
         pl = d["positive_label"]
         if isinstance(pl, (np.generic,)):
             d["positive_label"] = pl.item()
@@ -113,7 +135,12 @@ class Dataset:
     NaN where a non-event has no amount. ``dropped_rows`` counts the rows the
     user chose to drop (missing scores) and ``dropped_positions`` holds the
     first 100 of them as 1-based data rows; ``source_rows`` is the row count
-    as read.
+    as read. ``extra_scores`` maps each of the mapping's extra score columns
+    to its float64 values on the same rows (checked like the score; empty
+    when none). ``reduction`` is the :class:`core.reduce.Reduction` of a
+    count table that :func:`core.reduce.reduce_file` counted from a file
+    (the statement run, rows read, the rounding and its largest effect);
+    None otherwise.
     """
 
     kind: str
@@ -140,14 +167,21 @@ class Dataset:
     source_float32: bool = False
     read_notes: tuple[str, ...] = ()
     fingerprint: str = ""
+    extra_scores: dict[str, np.ndarray] = field(default_factory=dict)
+    reduction: Any = None  # core.reduce.Reduction | None: how a file was reduced to this table
 
     # -------------------------------------------------------------- builders
     @classmethod
     def from_arrays(cls, y_true, y_score, sample_weight=None, *, weight_kind=None, groups=None,
                     cluster=None, score_time=None, outcome_time=None, outcome_horizon_days=None,
                     case_cost=None, higher_is_riskier=True, file_name=None,
-                    warnings=()) -> Dataset:
-        """A row dataset from arrays, checked like :func:`core.curve.sweep` checks them."""
+                    warnings=(), extra_scores=None, extra_lower_is_riskier=()) -> Dataset:
+        """A row dataset from arrays, checked like :func:`core.curve.sweep` checks them.
+
+        ``extra_scores``: name -> other scores on the same rows (see
+        :class:`Mapping`); ``extra_lower_is_riskier``: those of them where
+        lower means riskier.
+        """
         y = _check_labels(y_true)
         n = y.shape[0]
         src32 = np.asarray(y_score).dtype == np.float32
@@ -179,18 +213,29 @@ class Dataset:
             if bad.any():
                 raise InputError("case_cost", "must be a finite, non-negative amount for every event",
                                  np.flatnonzero(bad))
+        extra = {}
+        for name, values in (extra_scores or {}).items():
+            name = str(name)
+            if name in ("y_score", *extra):
+                raise InputError(name, "is given twice among the scores; each score needs its own name")
+            extra[name] = _check_finite(name, values, n) + 0.0
+        low = tuple(str(c) for c in extra_lower_is_riskier)
+        stray = [c for c in low if c not in extra]
+        if stray:
+            raise InputError(stray[0], "is listed as lower-is-riskier but is not among the extra scores")
         mapping = Mapping(
             score="y_score", label="y_true", positive_label=1, weight=None if w is None else "sample_weight",
             weight_kind=weight_kind if w is not None else None, groups=tuple(grp),
             cluster=None if cl is None else "cluster", score_time=None if st is None else "score_time",
             outcome_time=None if ot is None else "outcome_time",
             outcome_horizon_days=outcome_horizon_days, case_cost=None if cc is None else "case_cost",
-            higher_is_riskier=bool(higher_is_riskier),
+            higher_is_riskier=bool(higher_is_riskier), extra_scores=tuple(extra),
+            extra_lower_is_riskier=tuple(c for c in extra if c in low),
         )
         ds = cls(kind="rows", mapping=mapping, y_score=s, y_true=y, sample_weight=w,
                  weight_kind=mapping.weight_kind, groups=grp, cluster=cl, score_time=st,
                  outcome_time=ot, case_cost=cc, file_name=file_name, warnings=tuple(warnings),
-                 source_rows=n, source_float32=src32)
+                 source_rows=n, source_float32=src32, extra_scores=extra)
         return ds.with_fingerprint()
 
     @classmethod
@@ -241,6 +286,8 @@ class Dataset:
         }
         for g, v in self.groups.items():
             arrays[f"group:{g}"] = v
+        for name, v in self.extra_scores.items():
+            arrays[f"extra_score:{name}"] = v
         text = {"cluster"} | {f"group:{g}" for g in self.groups}
         fp = fingerprint_arrays(arrays, self.mapping.to_dict(), text=text, text_codes_of=text_codes_of)
         object.__setattr__(self, "fingerprint", fp)
@@ -250,6 +297,12 @@ class Dataset:
     @property
     def higher_is_riskier(self) -> bool:
         return self.mapping.higher_is_riskier
+
+    @property
+    def extra_higher_is_riskier(self) -> dict[str, bool]:
+        """Each extra score's direction (True: higher is riskier), in mapping order."""
+        low = set(self.mapping.extra_lower_is_riskier)
+        return {k: k not in low for k in self.extra_scores}
 
     @property
     def n_rows(self) -> int:
@@ -310,5 +363,6 @@ class Dataset:
                      groups={k: v[m] for k, v in self.groups.items()}, cluster=take(self.cluster),
                      score_time=take(self.score_time), outcome_time=take(self.outcome_time),
                      case_cost=take(self.case_cost), file_name=self.file_name,
-                     warnings=self.warnings, source_rows=int(m.sum()))
+                     warnings=self.warnings, source_rows=int(m.sum()),
+                     extra_scores={k: v[m] for k, v in self.extra_scores.items()})
         return ds.with_fingerprint()

@@ -120,7 +120,50 @@ def _blank_to_none(m: Mapping) -> Mapping:
             changes[name] = None
     if isinstance(m.groups, (list, str)):
         changes["groups"] = (m.groups,) if isinstance(m.groups, str) else tuple(m.groups)
+    for name in ("extra_scores", "extra_lower_is_riskier"):
+        v = getattr(m, name)
+        if isinstance(v, str):
+            v = (v,)
+        if not isinstance(v, tuple) or any(not isinstance(c, str) or not c.strip() for c in v):
+            changes[name] = tuple(c for c in (v or ()) if isinstance(c, str) and c.strip())
     return replace(m, **changes) if changes else m
+
+
+def _check_extra_scores(m: Mapping, used: dict) -> None:
+    """Extra score columns: rows only, distinct from every other role, directions among them."""
+    if not m.extra_scores and not m.extra_lower_is_riskier:
+        return
+    if m.kind != "rows":
+        raise InputError(
+            m.extra_scores[0] if m.extra_scores else m.extra_lower_is_riskier[0],
+            "is an extra score, but a count table holds one score only; compare scores on the "
+            "rows (kind='rows')",
+        )
+    seen = set()
+    for col in m.extra_scores:
+        if col == m.score:
+            raise InputError(
+                col,
+                "is the score (the reference model) and cannot also be an extra score; choose "
+                "a different column to compare with it",
+            )
+        if col in seen:
+            raise InputError(col, "is listed twice among the extra score columns")
+        seen.add(col)
+        if col in used:
+            raise InputError(
+                col,
+                f"is mapped as both the {_ROLE_WORDS[used[col]]} and an extra score; each needs "
+                "its own column",
+            )
+        if col in m.groups:
+            raise InputError(col, "is an extra score; it cannot also be a group column")
+    stray = [c for c in m.extra_lower_is_riskier if c not in seen]
+    if stray:
+        raise InputError(
+            stray[0],
+            "is declared lower-is-riskier but is not among the extra score columns",
+        )
 
 
 def _check_mapping(m: Mapping) -> Mapping:
@@ -199,6 +242,7 @@ def _check_mapping(m: Mapping) -> Mapping:
         seen.add(g)
         if used.get(g) in ("score", "label", "events", "non_events"):
             raise InputError(g, f"is the {_ROLE_WORDS[used[g]]}; it cannot also be a group column")
+    _check_extra_scores(m, used)
     return m
 
 
@@ -207,6 +251,8 @@ def _mapped_columns(m: Mapping) -> dict[str, str]:
     out = {getattr(m, r): _ROLE_WORDS[r] for r in roles if getattr(m, r) is not None}
     for g in m.groups:
         out.setdefault(g, "group column")
+    for c in m.extra_scores:
+        out.setdefault(c, "extra score")
     return out
 
 
@@ -827,49 +873,77 @@ def _warn_few_events(n_events: float, column: str, warnings: list) -> None:
         )
 
 
-def _score(
-    raw: RawTable, m: Mapping, rows: _Rows, warnings: list
-) -> tuple[np.ndarray, np.ndarray | None]:
-    """(scores over all rows, keep mask or None) after the score checks."""
-    ser = raw.frame[m.score]
+def _score_column(raw: RawTable, column: str, drop_missing: bool) -> tuple[np.ndarray, np.ndarray]:
+    """(values over all rows, missing mask) of one score column after the score checks."""
+    ser = raw.frame[column]
     num = _numbers(ser, decimal=raw.info.decimal or ".", thousands=raw.info.thousands)
     if num.not_number.any():
         raise _not_numbers_error(
-            m.score, ser, np.flatnonzero(num.not_number), num.not_number, raw.info
+            column, ser, np.flatnonzero(num.not_number), num.not_number, raw.info
         )
     if num.infinite.any():
         raise InputError(
-            m.score,
+            column,
             "holds infinite values",
             np.flatnonzero(num.infinite),
             hint="Every score must be a finite number",
         )
+    if num.missing.any() and not drop_missing:
+        raise InputError(
+            column,
+            "has missing values",
+            np.flatnonzero(num.missing),
+            hint="Fill them in, or choose to drop rows with a missing score (the "
+            "count is reported in the memo)",
+        )
+    return num.values, num.missing
+
+
+def _score(
+    raw: RawTable, m: Mapping, rows: _Rows, warnings: list, extra: dict | None = None
+) -> tuple[np.ndarray, np.ndarray | None]:
+    """(scores over all rows, keep mask or None) after the score checks.
+
+    Every extra score column is checked the same way; its values over all
+    rows go into ``extra`` (name -> array). With ``drop_missing_scores`` a
+    row missing any mapped score is dropped, and the count is reported once.
+    """
+    values, missing = _score_column(raw, m.score, m.drop_missing_scores)
+    any_missing = missing
+    short = [m.score] if missing.any() else []
+    for col in m.extra_scores:
+        v, miss = _score_column(raw, col, m.drop_missing_scores)
+        if extra is not None:
+            extra[col] = v
+        if miss.any():
+            short.append(col)
+            any_missing = any_missing | miss
     keep = None
-    if num.missing.any():
-        pos = np.flatnonzero(num.missing)
-        if not m.drop_missing_scores:
-            raise InputError(
-                m.score,
-                "has missing values",
-                pos,
-                hint="Fill them in, or choose to drop rows with a missing score (the "
-                "count is reported in the memo)",
-            )
-        keep = ~num.missing
+    if short:
+        pos = np.flatnonzero(any_missing)
+        keep = ~any_missing
         k = pos.size
         if not keep.any():
-            raise InputError(m.score, "has no values at all (every row is missing its score)")
+            if missing.all():
+                raise InputError(m.score, "has no values at all (every row is missing its score)")
+            raise InputError(
+                short[-1] if len(short) > 1 else short[0],
+                "leaves no row with every score present (each row misses at least one of "
+                + ", ".join(short) + ")",
+            )
+        cols = ", ".join(short)
+        which = "" if len(short) == 1 else " (in at least one of these columns)"
         warnings.append(
             IntakeWarning(
                 "dropped_missing_scores",
-                f"{m.score}: {_n(k, 'row')} with a missing score {_v(k, 'was', 'were')} "
+                f"{cols}: {_n(k, 'row')} with a missing score{which} {_v(k, 'was', 'were')} "
                 f"dropped as chosen ({format_rows(pos)}); the analysis uses the other "
                 f"{int(keep.sum()):,} rows",
-                m.score,
+                short[0],
             )
         )
     rows.keep = keep
-    return num.values, keep
+    return values, keep
 
 
 def _amounts(
@@ -1028,7 +1102,8 @@ def _load_rows(raw: RawTable, m: Mapping) -> Dataset:
     n = raw.n_rows
     rows = _Rows(n)
     warnings: list[IntakeWarning] = []
-    s_all, keep = _score(raw, m, rows, warnings)
+    extra_all: dict[str, np.ndarray] = {}
+    s_all, keep = _score(raw, m, rows, warnings, extra_all)
     y_all, matched, merged = _labels(raw.frame[m.label], m.label, m.positive_label, rows)
     if merged:
         warnings.append(
@@ -1079,6 +1154,11 @@ def _load_rows(raw: RawTable, m: Mapping) -> Dataset:
         _outcome_checks(m, y, st, ot, warnings, pos_of)
     f32 = _warn_float32(raw, raw.frame[m.score], m.score, warnings)
     _warn_unit_interval(s, m.score, warnings)
+    extra_scores = {}
+    for col, v in extra_all.items():
+        extra_scores[col] = final(v) + 0.0
+        _warn_float32(raw, raw.frame[col], col, warnings)
+        _warn_unit_interval(extra_scores[col], col, warnings)
     n_events = float(w[y].sum()) if (w is not None and m.weight_kind == "frequency") else n_ev_rows
     _warn_few_events(n_events, m.label, warnings)
     _warn_encoding(raw, warnings)
@@ -1107,6 +1187,7 @@ def _load_rows(raw: RawTable, m: Mapping) -> Dataset:
         source_rows=n,
         source_float32=f32,
         read_notes=raw.info.notes,
+        extra_scores=extra_scores,
     )
     return ds.with_fingerprint(text_codes_of=codes_of)
 

@@ -48,6 +48,7 @@ threshold`` (or ``<=``) can check the rounding and the comparison.
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as _dt
 import hashlib
 import json
@@ -952,6 +953,8 @@ def restore_decision(record: dict) -> RestoredDecision:
         mapping = Mapping.from_dict(record["data"]["mapping"])
     except (InputError, TypeError) as exc:
         raise RecordError("data.mapping", str(exc)) from None
+    if mapping.extra_scores:  # the decision is about its own score; new data need not hold the others
+        mapping = dataclasses.replace(mapping, extra_scores=(), extra_lower_is_riskier=())
     try:
         policy = Policy.from_dict(record["policy"]["as_written"])
     except InputError as exc:
