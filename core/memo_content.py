@@ -375,6 +375,10 @@ def memo_blocks(record: dict) -> list[Block]:
     for w in data.get("warnings") or []:
         kv.append(("Intake warning", w["message"]))
     add(Block("kv", rows=tuple(kv)))
+    red = data.get("reduction")
+    if red:
+        # the count table was counted from a larger file: what was read, and the rounding
+        add(Block("p", red["statement"]))
     for s in record.get("analysis", {}).get("statements", [])[:2]:
         add(Block("p", s))
 

@@ -773,8 +773,29 @@ def _data(a) -> dict:
         "warnings": [{"code": w.code, "message": w.message, "column": w.column} for w in ds.warnings],
         "read_notes": list(ds.read_notes),
         "mapping": m.to_dict(),
+        "reduction": _reduction(ds),
     }
     return json_safe(out)
+
+
+def _reduction(ds) -> dict | None:
+    """How a file was reduced to the count table (``Dataset.reduction``), or None.
+
+    The source columns, the engine and its limits, the rows read and counted
+    and the rounding with its largest effect; not the statement's FROM item
+    (it names the file's full path) nor the seconds taken (the record must
+    not depend on the machine's speed).
+    """
+    red = getattr(ds, "reduction", None)
+    if red is None:
+        return None
+    d = red.to_dict()
+    for k in ("sql", "seconds", "notes"):
+        d.pop(k, None)
+    if d.get("rounding") is not None:
+        d["rounding"].pop("sql", None)
+    d["statement"] = red.statement()
+    return d
 
 
 def _curves(a) -> dict:

@@ -229,8 +229,11 @@ class Reduction:
 
 
 def reduction_of(ds: Dataset) -> Reduction | None:
-    """The :class:`Reduction` of a dataset built by :func:`reduce_file` (None otherwise)."""
-    return ds.__dict__.get("reduction")
+    """The :class:`Reduction` of a dataset built by :func:`reduce_file` (None otherwise).
+
+    The same as ``ds.reduction`` (the :class:`~core.dataset.Dataset` field).
+    """
+    return getattr(ds, "reduction", None)
 
 
 def _num(x: float) -> str:
@@ -753,11 +756,10 @@ drop_missing_scores
         weight_kind=m.weight_kind, case_cost=m.case_cost, decimals=d, rounding=rounding,
         memory_limit=str(memory_limit), threads=int(threads),
         seconds=time.perf_counter() - t_start, notes=tuple(src.notes))
-    ds = replace(ds, read_notes=tuple(src.notes) + (reduction.statement(),),
-                 dropped_rows=checked.dropped, dropped_positions=checked.dropped_positions,
-                 source_rows=checked.rows_read, source_float32=checked.float32)
-    object.__setattr__(ds, "reduction", reduction)
-    return ds
+    return replace(ds, read_notes=tuple(src.notes) + (reduction.statement(),),
+                   dropped_rows=checked.dropped, dropped_positions=checked.dropped_positions,
+                   source_rows=checked.rows_read, source_float32=checked.float32,
+                   reduction=reduction)
 
 
 # =========================================================================== checks
