@@ -65,8 +65,21 @@ def _add_recheck(sub) -> None:
     add_recheck(sub)
 
 
+def _add_sql(sub) -> None:
+    from core.cli_sql import add_sql
+
+    add_sql(sub)
+
+
+def _add_compare(sub) -> None:
+    from core.cli_compare import add_compare
+
+    add_compare(sub)
+
+
 #: name -> function that adds the subcommand to the subparsers object.
-COMMANDS = {"app": _add_app, "pick": _add_pick, "recheck": _add_recheck}
+COMMANDS = {"app": _add_app, "pick": _add_pick, "recheck": _add_recheck, "sql": _add_sql,
+            "compare": _add_compare}
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -138,7 +138,15 @@ def _load(args):
     if mapping.kind == "counts":
         from core.intake import load_count_table
 
-        return load_count_table(args.data, mapping, sheet=args.sheet)
+        try:
+            return load_count_table(args.data, mapping, sheet=args.sheet)
+        except InputError as exc:
+            if exc.column in mapping.groups and not exc.n_rows:
+                raise InputError(exc.column, f"{exc.problem}. A count table can only be split by "
+                                 "the group columns it was counted by; count the rows again with "
+                                 "this column among the groups (fulcrum sql --group, or --reduce "
+                                 "on the row file), or give the rows") from None
+            raise
     if mapping.positive_label is not None:
         return load_dataset(args.data, mapping, sheet=args.sheet)
     raw = read_table(args.data, sheet=args.sheet, columns=_mapped_columns(mapping))
