@@ -672,50 +672,128 @@ def _sweep_weighted(y, s, w, a, higher_is_riskier):
 
     Coarse scores (few distinct values, e.g. rounded to 4 decimals) are hashed
     to their value with ``pandas.factorize`` and summed per value with
-    ``bincount``: no permutation of the rows. Otherwise one argsort carries
-    each weight to its score (no way around a permutation when every row has
-    its own weight) and cumulative sums are read at the boundary of each run
-    of tied scores, in point order.
+    ``bincount``: no permutation of the rows (:func:`_sweep_weighted_coarse`).
+    Otherwise one argsort carries each weight to its score (no way around a
+    permutation when every row has its own weight) and cumulative sums are
+    read at the boundary of each run of tied scores, in point order.
+
+    Memory: the curve itself holds six arrays of the distinct-score count
+    (thresholds, ascending scores, tp, fp and their squared-weight sums), so
+    the temporaries are kept few. Each cumulative sum is taken in place in a
+    buffer that already holds the leading "flag none" zero; with no tied
+    scores that buffer *is* the curve's array, otherwise it is read at the
+    run ends and reused. The values summed, and their order, are those of
+    ``cumsum(where(y, w, 0))`` and ``cumsum(w - where(y, w, 0))`` over the
+    rows in the argsort's order, so the sums are the same to the last bit.
     """
     n = s.shape[0]
     if _few_distinct(s):
-        codes, uniques = pd.factorize(s, sort=False)
-        uniques = np.asarray(uniques, dtype=np.float64)
-        _check_sorted_ends("y_score", np.sort(uniques), s)
-        asc = np.unique(uniques)  # sorted distinct values (-0.0 and 0.0 are one value)
-        cell = np.searchsorted(asc, uniques)[codes]
-        d = asc.shape[0]
-        wy = np.where(y, w, 0.0)
-        wn = w - wy
-        cost = None if a is None else np.bincount(cell, weights=np.where(y, w * a, 0.0), minlength=d)
-        return Curve._from_cells(
-            asc, np.bincount(cell, weights=wy, minlength=d), np.bincount(cell, weights=wn, minlength=d),
-            higher_is_riskier=higher_is_riskier, cost=cost,
-            pos_sq=np.bincount(cell, weights=wy * wy, minlength=d),
-            neg_sq=np.bincount(cell, weights=wn * wn, minlength=d), n_rows=n, weighted=True)
-    order = np.argsort(s)
+        return _sweep_weighted_coarse(y, s, w, a, higher_is_riskier)
+    order = np.argsort(s)  # the same sort as ever: tied rows' weights add up in its order
+    asc = s[order]
+    _check_sorted_ends("y_score", asc, s)
+    asc, starts = _distinct(asc)
     if higher_is_riskier:
-        order = order[::-1]  # strictest first
-    ss = s[order]
-    _check_sorted_ends("y_score", ss, s)
-    ws = w[order]
-    wy = np.where(y[order], ws, 0.0)
-    if higher_is_riskier:
-        asc_rev, starts = _distinct(ss[::-1])
-        asc = asc_rev
-        # runs in strictest-first order end where the ascending runs start
-        ends = None if starts is None else (n - 1 - starts)[::-1]
-    else:
-        asc, starts = _distinct(ss)
-        ends = None if starts is None else np.r_[starts[1:] - 1, n - 1]
+        order = order[::-1].copy()  # strictest first; contiguous, so take() needs no copy of it
+    ends = _run_ends(starts, n, higher_is_riskier)
+    del starts
+    yo = y[order]
+    ws = np.empty(n + 1, dtype=np.float64)  # ws[0] stays 0.0: the "flag none" point
+    ws[0] = 0.0
+    np.take(w, order, out=ws[1:], mode="clip")
+    cost = None
+    if a is not None:
+        c = np.empty(n + 1, dtype=np.float64)
+        c[0] = 0.0
+        np.take(a, order, out=c[1:], mode="clip")
+        np.multiply(ws, c, out=c)  # w * a, exactly as ws * a[order]
+        np.copyto(c[1:], 0.0, where=~yo)
+        cost = _cumulate_at(c, ends)
+        del c
+    del order
 
-    def cum(v):
-        c = np.cumsum(v)
-        return c if ends is None else c[ends]
-
-    cost = None if a is None else cum(np.where(y[order], ws * a[order], 0.0))
-    wn = ws - wy
+    wy = ws.copy()  # where(y, w, 0): events keep their weight
+    np.copyto(wy[1:], 0.0, where=~yo)
+    sq = np.multiply(wy, wy)
+    tp = _cumulate_at(wy, ends)
+    tp_sq = _cumulate_at(sq, ends)
+    del wy, sq
+    wn = ws  # w - where(y, w, 0): equal to w for non-events, +0.0 for events
+    del ws
+    np.copyto(wn[1:], 0.0, where=yo)
+    del yo
+    sq = np.multiply(wn, wn)
+    fp = _cumulate_at(wn, ends)
+    fp_sq = _cumulate_at(sq, ends)
+    del wn, sq, ends
     return Curve._from_cumulative(
-        np.ascontiguousarray(asc), cum(wy), None, higher_is_riskier=higher_is_riskier,
-        cost_strict=cost, tp_sq_strict=cum(wy * wy), fp_strict=cum(wn), fp_sq_strict=cum(wn * wn),
+        asc, tp, None, higher_is_riskier=higher_is_riskier,
+        cost_strict=cost, tp_sq_strict=tp_sq, fp_strict=fp, fp_sq_strict=fp_sq,
         n_rows=n, weighted=True)
+
+
+def _run_ends(starts, n: int, higher_is_riskier: bool):
+    """Last row (in strictest-first row order) of each tied run, in point order; None: no ties.
+
+    ``starts`` are the run starts of the ascending sorted scores (see :func:`_distinct`).
+    """
+    if starts is None:
+        return None
+    if higher_is_riskier:
+        # strictest-first row j is ascending row n-1-j: a run ends where its ascending run starts
+        return np.subtract(n - 1, starts[::-1])
+    ends = np.empty_like(starts)
+    np.subtract(starts[1:], 1, out=ends[:-1])
+    ends[-1] = n - 1
+    return ends
+
+
+def _cumulate_at(buf: np.ndarray, ends) -> np.ndarray:
+    """Running sums of ``buf[1:]`` (``buf[0]`` is 0.0) in place, read at ``ends``.
+
+    Returns the curve's array (length d + 1, "flag none" first): ``buf``
+    itself when there are no ties (``ends`` None), else a new array.
+    """
+    np.cumsum(buf[1:], out=buf[1:])
+    if ends is None:
+        return buf
+    out = np.empty(ends.shape[0] + 1, dtype=np.float64)
+    out[0] = 0.0
+    np.take(buf[1:], ends, out=out[1:], mode="clip")
+    return out
+
+
+def _sweep_weighted_coarse(y, s, w, a, higher_is_riskier):
+    """Weighted rows with few distinct scores: per-value sums by ``bincount`` over hashed codes.
+
+    The weights summed (``where(y, w, 0)``, ``w`` minus it, their squares and
+    ``where(y, w * a, 0)``) and their row order are the same as ever; each
+    temporary is freed before the next is made.
+    """
+    n = s.shape[0]
+    codes, uniques = pd.factorize(s, sort=False)
+    uniques = np.asarray(uniques, dtype=np.float64)
+    _check_sorted_ends("y_score", np.sort(uniques), s)
+    asc = np.unique(uniques)  # sorted distinct values (-0.0 and 0.0 are one value)
+    cell = np.searchsorted(asc, uniques)[codes]
+    del codes
+    d = asc.shape[0]
+    cost = None
+    if a is not None:
+        wa = np.multiply(w, a)
+        np.copyto(wa, 0.0, where=~y)  # where(y, w * a, 0)
+        cost = np.bincount(cell, weights=wa, minlength=d)
+        del wa
+    wy = np.where(y, w, 0.0)
+    wn = np.subtract(w, wy)
+    pos = np.bincount(cell, weights=wy, minlength=d)
+    np.multiply(wy, wy, out=wy)
+    pos_sq = np.bincount(cell, weights=wy, minlength=d)
+    del wy
+    neg = np.bincount(cell, weights=wn, minlength=d)
+    np.multiply(wn, wn, out=wn)
+    neg_sq = np.bincount(cell, weights=wn, minlength=d)
+    del wn, cell
+    return Curve._from_cells(
+        asc, pos, neg, higher_is_riskier=higher_is_riskier, cost=cost, pos_sq=pos_sq,
+        neg_sq=neg_sq, n_rows=n, weighted=True)
