@@ -278,14 +278,34 @@ def _resolved_value(rp: dict, section: str, key: str):
     return None if e is None else e.get("value")
 
 
-def _record_policy(record: dict):
-    """The record's policy with its resolved deployment prevalence and volume fixed in."""
+def _own_volume(record: dict, ds) -> bool:
+    """True when the record's volume was its own data's and the new data can give theirs.
+
+    A volume the policy file did not state was the approval data's mean cases
+    per period (source "data"): judged like the approval, the new data then
+    count at their own volume (more cases a day means more flags a day), which
+    needs their score-time column.
+    """
+    e = (record["policy"]["resolved"].get("deployment") or {}).get("cases_per_period") or {}
+    return (e.get("source") == "data" and ds is not None and ds.kind == "rows"
+            and ds.score_time is not None)
+
+
+def _record_policy(record: dict, ds=None):
+    """The record's policy with its resolved deployment prevalence and volume fixed in.
+
+    The volume is not fixed in when it was the approval data's own and ``ds``
+    (the new data) has a score-time column: then it is the new data's own
+    (see :func:`_own_volume`).
+    """
     from core.policy import Policy
 
     rp = record["policy"]["resolved"]
     d = json.loads(json.dumps(record["policy"]["as_written"]))
     dep = dict(d.get("deployment") or {})
-    for key in ("prevalence", "cases_per_period", "period"):
+    keys = ("prevalence", "period") if _own_volume(record, ds) else \
+        ("prevalence", "cases_per_period", "period")
+    for key in keys:
         v = _resolved_value(rp, "deployment", key)
         if v is not None and dep.get(key) is None:
             dep[key] = v
@@ -296,6 +316,21 @@ def _record_policy(record: dict):
             dep.pop("prevalence_high", None)
     d["deployment"] = dep
     return Policy.from_dict(d)
+
+
+def _volume(record: dict, ds, period: str):
+    """(cases per period the verdicts use, a note or None) -- see :func:`_own_volume`."""
+    cpp = _resolved_value(record["policy"]["resolved"], "deployment", "cases_per_period")
+    if not _own_volume(record, ds):
+        return cpp, None
+    from core.capacity import period_index
+
+    ids, starts = period_index(ds.score_time, period)
+    total = float(ids.shape[0] if ds.sample_weight is None else np.sum(ds.sample_weight))
+    own = total / len(starts)
+    return own, (f"Cases per {period}: the policy file gave none, so the approval counted at its "
+                 f"own data's volume ({cpp:,.1f} per {period}); the new data count at theirs "
+                 f"({own:,.1f} per {period} over {len(starts):,} {period}s).")
 
 
 def _subset(ds, mask):
@@ -461,11 +496,15 @@ def policy_changes(record: dict, policy, dataset) -> list[dict]:
     old = _flat_resolved(record["policy"]["resolved"])
     rp = resolve_policy(policy, dataset)
     new = {k: (list(v) if isinstance(v, tuple) else v) for k, v in rp.values().items()}
+    own = _own_volume(record, dataset) and \
+        rp.sources.get("deployment.cases_per_period") == "data"
     out = []
     for key in sorted(set(old) | set(new)):
         a, b = old.get(key), new.get(key)
         if a is None and b is None:
             continue
+        if key == "deployment.cases_per_period" and own:
+            continue  # each side its own data's volume, as the approval did
         if a is not None and b is not None and _same(a, b):
             continue
         out.append({"key": key, "old": a, "new": b,
@@ -485,13 +524,15 @@ def _as_policy(policy):
                      f"{type(policy).__name__}")
 
 
-def record_policy(record: dict):
+def record_policy(record: dict, dataset=None):
     """The record's policy with its resolved deployment prevalence and volume fixed in.
 
     This is the policy the recheck uses for "what the same policy would choose
     now" unless another is given, and the one a policy editor starts from.
+    Give the new data as ``dataset`` to leave out a volume that was the
+    approval data's own (the new data then count at theirs).
     """
-    return _record_policy(record)
+    return _record_policy(record, dataset)
 
 
 def _change_text(c: dict) -> str:
@@ -551,7 +592,7 @@ def _choice_now(record, ds, policy=None, t=None, *, changes=None) -> dict:
 
     changed = policy is not None
     if policy is None:
-        policy = _record_policy(record)
+        policy = _record_policy(record, ds)
     if t is None:
         t = _f(record["threshold"])
     if changes is None:
@@ -831,14 +872,17 @@ def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = Fal
     rules = {k: float(v["value"]) for k, v in (rp.get("rules") or {}).items()
              if k not in ("capacity_quantile", "confidence")}
     prevalence = _resolved_value(rp, "deployment", "prevalence")
-    cpp = _resolved_value(rp, "deployment", "cases_per_period")
     period = _resolved_value(rp, "deployment", "period") or "day"
+    cpp, volume_note = _volume(record, mature, period)
     quantile = _resolved_value(rp, "rules", "capacity_quantile")
     margins = {r["name"]: r.get("margin") for r in (record.get("choice") or {}).get("rules", [])
                if r.get("margin") is not None}
     kw = {"confidence": confidence, "prevalence": prevalence, "cpp": cpp, "period": period,
           "quantile": quantile}
     verdicts, counts = _judge(mature, t, rules, margins=margins, **kw)
+    if volume_note:
+        verdicts = tuple(replace(v, reason=v.reason + " " + volume_note)
+                         if v.name == "max_flagged_per_period" else v for v in verdicts)
 
     # subgroups present in both
     ref_rows = (record.get("groups") or {}).get("rows") or []
@@ -862,7 +906,7 @@ def recheck(record: dict, new_dataset_or_source, *, as_of=None, live: bool = Fal
     if mature.groups:
         from core.groups import subgroup_report
 
-        rep = subgroup_report(mature, t, policy=_record_policy(record), confidence=confidence,
+        rep = subgroup_report(mature, t, policy=_record_policy(record, mature), confidence=confidence,
                               n_replicates=n_replicates, seed=seed, progress=progress).to_dict()
         fairness = rep.get("fairness")
         rows = {(str(x["column"]), str(x["group"])): x for x in rep["rows"]

@@ -67,7 +67,7 @@ def policy_value(x) -> str:
         return f"{x:.6g}"
     if isinstance(x, list):
         return ", ".join(map(str, x)) or "(none)"
-    return str(x)
+    return str(x) if str(x) else "(empty)"
 
 
 def per_period_header(fpp: dict) -> tuple:
