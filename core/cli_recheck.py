@@ -27,7 +27,8 @@ first; the new data are read with the record's column mapping and event value (g
 is still open at --as-of (default: today, always printed) are left out. Every rule of the record's
 policy is judged as at approval (one-sided bounds at the record's confidence): holds, fails or
 unclear, overall and per subgroup; the scores' drift, calibration drift and what the same policy
-would choose now are reported.
+would choose now are reported. --policy FILE changes the policy for that last part only (what
+changed is listed); the verdicts stay judged against the record's policy (the approval).
 
 Exit status: 0 every rule holds, 1 any rule fails or is unclear, 2 bad input or a record that
 fails its integrity check."""
@@ -67,6 +68,9 @@ def add_recheck(sub) -> None:
                    help="label maturity as of this date (ISO 8601; default: today)")
     a.add_argument("--live", action="store_true",
                    help="the new data were collected while the approved threshold was live")
+    a.add_argument("--policy", metavar="FILE",
+                   help="policy file (TOML, as for pick) for what would be chosen now; default: "
+                        "the record's resolved policy. The verdicts keep the record's policy")
     a.add_argument("--seed", metavar="N", type=int, default=None,
                    help="seed of the subgroup bootstrap (default: the record's)")
     a.add_argument("--replicates", metavar="N", type=int, default=None,
@@ -118,6 +122,11 @@ def run_recheck(args) -> int:
         if path and not Path(path).resolve().parent.is_dir():
             raise InputError(opt, f"the folder of {path} does not exist")
     record = load_record(args.record)
+    policy = None
+    if args.policy:
+        from core.policy import load_policy
+
+        policy = load_policy(args.policy)
     an = record.get("analysis") or {}
     seed = args.seed if args.seed is not None else int(an.get("seed", 0))
     reps = args.replicates if args.replicates is not None else int(an.get("n_replicates", 2000))
@@ -127,7 +136,8 @@ def run_recheck(args) -> int:
 
         source = read_table(args.data, sheet=args.sheet)
     result = recheck(record, source, as_of=args.as_of, live=args.live,
-                     mapping_override=override_from_args(args, record), n_replicates=reps, seed=seed)
+                     mapping_override=override_from_args(args, record), policy=policy,
+                     n_replicates=reps, seed=seed)
     rec = build_recheck_record(result)
     written = []
     if args.out:
@@ -168,6 +178,8 @@ def recheck_summary_lines(rec: dict, written=()) -> list[str]:
         for v in g["verdicts"]:
             if v["verdict"] != "holds":
                 out.append(f"  {g['column']} = {g['group']}: " + rule_line(v))
+    if rec["groups"].get("overlaps"):
+        out.append("  " + rec["groups"]["overlaps"]["statement"])
     if rec["groups"]["new"]:
         out.append("New groups: " + ", ".join(rec["groups"]["new"]))
     if rec["groups"]["vanished"]:
@@ -182,7 +194,23 @@ def recheck_summary_lines(rec: dict, written=()) -> list[str]:
     cal = rec["calibration_drift"]
     out.append(f"Calibration: {cal['verdict']}" + ("; changed since approval" if cal["drifted"]
                                                     else ""))
-    out.append("Same policy now: " + rec["policy_now"]["statement"])
+    now = rec["policy_now"]
+    if now.get("policy_source") == "changed":
+        from core.recheck_memo import policy_value
+
+        out.append("Changed policy now (" + "; ".join(
+            f"{c['key']} {policy_value(c['old'])} -> {policy_value(c['new'])}"
+            for c in now["changes"]) + "): " + now["statement"])
+        out.append("  " + now["verdict_basis"])
+    else:
+        out.append("Same policy now: " + now["statement"])
+    fpp = now.get("flags_per_period")
+    if fpp:
+        for r in fpp["rows"]:
+            if r.get("median") is not None:
+                out.append(f"  Flagged per {r['period']}, {r['point']}: median {r['median']:,.1f}, "
+                           f"{r['quantile_level']:g}-quantile {r['quantile']:,.1f}, maximum "
+                           f"{r['max']:,.1f} over {r['n_periods']:,} {r['period']}s")
     out.append("")
     out.append("Note: " + cautions.SHORT)
     out.append(f"Recheck record sha256 {rec['integrity']['sha256']}")

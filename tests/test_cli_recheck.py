@@ -138,3 +138,36 @@ def test_recheck_page_gives_the_cli_recheck_record(q2_run):
     # a rerun keeps the record's time (no new record for the same inputs)
     at.run()
     assert at.session_state["fulcrum_recheck_record"] == page
+
+
+def test_policy_option_changes_only_the_choice_now(q2_run, tmp_path):
+    # --policy FILE: what would be chosen now under a changed capacity; verdicts unchanged
+    _, out = q2_run
+    text = (POLICY_DIR / "hospital.toml").read_text(encoding="utf-8").replace(
+        "max_flagged_per_period = 320", "max_flagged_per_period = 400")
+    assert "max_flagged_per_period = 400" in text
+    pol = tmp_path / "wider.toml"
+    pol.write_text(text, encoding="utf-8")
+    res = run(["recheck", str(demo_path("hospital_q2")), "--record", str(out / "decision.json"),
+               "--as-of", AS_OF, "--policy", str(pol), "--out", str(tmp_path / "changed.json")])
+    assert res.returncode == 1, res.stderr  # the approved rules still fail as before
+    rec = load_recheck(tmp_path / "changed.json")
+    base = load_recheck(out / "recheck.json")
+    assert rec["rules"] == base["rules"] and rec["summary"] == base["summary"]
+    now = rec["policy_now"]
+    assert now["policy_source"] == "changed"
+    assert now["changes"] == [{"key": "rules.max_flagged_per_period", "old": 320.0, "new": 400.0,
+                               "source": "file"}]
+    assert now["chosen_now"] is not None and base["policy_now"]["chosen_now"] is None
+    assert "Changed policy now (rules.max_flagged_per_period 320 -> 400)" in res.stdout
+    assert "judged against the decision record's policy" in res.stdout
+    assert "Flagged per day, approved threshold, new data" in res.stdout
+
+
+def test_bad_policy_file_exits_2(decision, tmp_path):
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[rules]\nmin_recall = 1.5\n", encoding="utf-8")
+    res = run(["recheck", str(demo_path("hospital_q2")), "--record",
+               str(decision / "decision.json"), "--as-of", AS_OF, "--policy", str(bad)])
+    assert res.returncode == 2 and "min_recall" in res.stderr and "bad.toml" in res.stderr
+    assert len(res.stderr.strip().splitlines()) == 1
