@@ -103,6 +103,7 @@ __all__ = [
     "PairComparison",
     "PointSet",
     "compare_dataset",
+    "compare_mapped",
     "compare_scores",
 ]
 
@@ -1226,3 +1227,27 @@ def compare_dataset(dataset: Dataset, other_scores: dict, *, higher_is_riskier=T
     scores = {ref: dataset.y_score, **others}
     return compare_scores(dataset.y_true, scores, higher_is_riskier=dirs, dataset=dataset,
                           reference=ref, **kwargs)
+
+
+def compare_mapped(dataset: Dataset, **kwargs) -> Comparison:
+    """Compare a Dataset's own score with the extra score columns its mapping holds.
+
+    The reference is the mapping's ``score``; the candidates are
+    ``mapping.extra_scores`` (in order) with the directions
+    ``mapping.extra_lower_is_riskier`` gives them. The same call serves the
+    command line (``fulcrum compare``), the Compare page and the memo's
+    comparison section. Keyword arguments go to :func:`compare_scores`.
+
+    Raises
+    ------
+    InputError
+        When the dataset has no extra score (one score cannot be compared).
+    """
+    if not isinstance(dataset, Dataset) or dataset.kind != "rows":
+        raise InputError("dataset", "must be a row Dataset (a count table holds one score only)")
+    if not dataset.extra_scores:
+        raise InputError("extra_scores", "only one score is mapped; map a second score column on "
+                         "the same rows (the candidate) to compare it with "
+                         f"'{dataset.mapping.score}'")
+    return compare_dataset(dataset, dataset.extra_scores,
+                           higher_is_riskier=dataset.extra_higher_is_riskier, **kwargs)
