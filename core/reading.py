@@ -38,6 +38,7 @@ import gzip
 import io
 import os
 import re
+import zlib
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -166,6 +167,11 @@ class RawTable:
 
 def _label(file_name: str | None) -> str:
     return file_name if file_name else "The file"
+
+
+def _reason(exc: BaseException) -> str:
+    """A library's error text on one line (the message is one line in the app and the CLI)."""
+    return " ".join(str(exc).split()) or type(exc).__name__
 
 
 def _file_error(label: str, problem: str, positions=None, *, hint: str = "") -> InputError:
@@ -502,7 +508,7 @@ def _parse_text(
     except pa.ArrowInvalid as exc:
         if "Expected" in str(exc) and "columns" in str(exc):
             _raise_ragged(buf, parse, skip, len(raw_names), label)
-        raise _file_error(label, f"could not be read as delimited text ({exc})") from None
+        raise _file_error(label, f"could not be read as delimited text ({_reason(exc)})") from None
     if include is not None and keep is None:  # repeated raw (empty) names: select by position
         table = table.select(list(include))
     return table
@@ -695,16 +701,19 @@ def _read_parquet(data: bytes, *, file_name, columns, notes) -> tuple[pd.DataFra
     try:
         pf = pq.ParquetFile(pa.BufferReader(data))
     except (pa.ArrowInvalid, OSError) as exc:
-        raise _file_error(label, f"could not be read as Parquet ({exc})") from None
+        raise _file_error(label, f"could not be read as Parquet ({_reason(exc)})") from None
     schema_names = list(pf.schema_arrow.names)
     _check_duplicates([str(n) for n in schema_names])
     if columns is not None:
         missing = [c for c in columns if c not in schema_names]
         if missing:
             raise missing_column_error(missing[0], _role(columns, missing[0]), schema_names)
-    table = pf.read(columns=list(columns) if columns is not None else None)
+    try:  # a damaged page shows only when it is read
+        table = pf.read(columns=list(columns) if columns is not None else None)
+        frame = table.to_pandas(date_as_object=False)
+    except Exception as exc:  # noqa: BLE001 -- any failure of the library on these bytes
+        raise _file_error(label, f"could not be read as Parquet ({_reason(exc)})") from None
     float32 = tuple(str(f.name) for f in table.schema if pa.types.is_float32(f.type))
-    frame = table.to_pandas(date_as_object=False)
     if not isinstance(frame.index, pd.RangeIndex):
         frame = frame.reset_index()
     frame.columns = _clean_names(list(frame.columns), notes)
@@ -754,20 +763,22 @@ def _is_formula(value) -> bool:
     return type(value).__name__ in ("ArrayFormula", "DataTableFormula")
 
 
-def _read_excel(data: bytes, *, file_name, sheet, columns, notes) -> tuple[pd.DataFrame, ReadInfo]:
-    import zipfile
+def _not_a_workbook(label: str, exc: BaseException) -> InputError:
+    return _file_error(
+        label,
+        f"is a ZIP archive but not an Excel workbook Fulcrum can read ({_reason(exc)})",
+        hint="Fulcrum reads Excel .xlsx, CSV, TSV and Parquet",
+    )
 
+
+def _read_excel(data: bytes, *, file_name, sheet, columns, notes) -> tuple[pd.DataFrame, ReadInfo]:
     import openpyxl
 
     label = _label(file_name)
     try:
         wb = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True)
-    except (zipfile.BadZipFile, KeyError, OSError, ValueError) as exc:
-        raise _file_error(
-            label,
-            f"is a ZIP archive but not an Excel workbook Fulcrum can read ({exc})",
-            hint="Fulcrum reads Excel .xlsx, CSV, TSV and Parquet",
-        ) from None
+    except Exception as exc:  # noqa: BLE001 -- any failure of the library on these bytes
+        raise _not_a_workbook(label, exc) from None
     try:
         names = [ws.title for ws in wb.worksheets]  # chart sheets hold no table
         if not names:
@@ -775,7 +786,10 @@ def _read_excel(data: bytes, *, file_name, sheet, columns, notes) -> tuple[pd.Da
         chosen = _pick_sheet(names, sheet)
         ws = wb[chosen]
         ws.reset_dimensions()  # do not trust the stored sheet size: read every row there is
-        rows = list(ws.iter_rows(values_only=True))
+        try:  # read-only workbooks unpack each sheet only now
+            rows = list(ws.iter_rows(values_only=True))
+        except Exception as exc:  # noqa: BLE001
+            raise _not_a_workbook(label, exc) from None
     finally:
         wb.close()
     # trailing empty rows and columns are formatting, not data
@@ -894,9 +908,9 @@ def read_table(
     if data.startswith(_MAGIC_GZIP):
         try:
             data = gzip.decompress(data)
-        except (OSError, EOFError) as exc:
+        except (OSError, EOFError, zlib.error) as exc:
             raise _file_error(
-                label, f"looks gzip-compressed but cannot be decompressed ({exc})"
+                label, f"looks gzip-compressed but cannot be decompressed ({_reason(exc)})"
             ) from None
         compression = "gzip"
     if not data:

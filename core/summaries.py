@@ -26,7 +26,7 @@ class ClassHistogram:
 
     @property
     def centers(self) -> np.ndarray:
-        return (self.edges[1:] + self.edges[:-1]) / 2.0
+        return self.edges[1:] / 2.0 + self.edges[:-1] / 2.0  # no overflow near +-1.8e308
 
     @property
     def widths(self) -> np.ndarray:
@@ -52,8 +52,14 @@ def class_histogram(dataset, bins: int = 60, edges=None) -> ClassHistogram:
     if edges is None:
         lo, hi = float(s.min()), float(s.max())
         if hi <= lo:
-            hi = lo + 1.0
-        edges = np.linspace(lo, hi, int(bins) + 1)
+            with np.errstate(over="ignore"):
+                hi = lo + 1.0 if lo + 1.0 > lo else float(np.nextafter(lo, np.inf))
+            if not np.isfinite(hi):  # lo is the largest float
+                lo, hi = float(np.nextafter(lo, -np.inf)), lo
+        # lo*(1-t) + hi*t stays finite where hi - lo overflows (scores near +-1.8e308)
+        t = np.linspace(0.0, 1.0, int(bins) + 1)
+        edges = np.maximum.accumulate(lo * (1.0 - t) + hi * t)
+        edges[0], edges[-1] = lo, hi
     edges = np.asarray(edges, dtype=np.float64)
     w_all = w_pos + w_neg
     below = float(w_all[s < edges[0]].sum())

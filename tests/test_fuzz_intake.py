@@ -1,0 +1,206 @@
+"""Bad input fuzzing: thousands of generated files through the core, the CLI and the app.
+
+Every file (see :mod:`tests.fuzz_files` for the kinds and the oracle) either
+loads, with exactly the numbers written in it, or is refused with
+:class:`core.errors.InputError` naming the column and the rows; no other
+exception. The command line refuses with exit code 2 and the same one line
+the core gives; the app shows the message and no exception. Common practice,
+no source: a tool that holds personal data must never crash on a file.
+
+Each test prints its figure ("files tried, held, loaded, refused") past
+pytest's capture and stores it in ``artifacts/reliability.json``.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import io
+import os
+import subprocess
+import sys
+from collections import Counter
+from pathlib import Path
+
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from core.cli import main as cli_main
+from core.dataset import Mapping
+from core.errors import InputError
+from core.intake import load_dataset
+from tests.fuzz_files import KINDS, check_outcome, make_file
+from tests.reliability import report
+
+ROOT = Path(__file__).resolve().parents[1]
+APP = str(ROOT / "app" / "main.py")
+
+#: Files per CI run through both the core and the CLI's main(argv).
+N_FILES = 5_000
+N_SUBPROCESS = 20
+N_APP = 100
+
+_FUZZ = settings(derandomize=True, deadline=None, database=None, max_examples=N_FILES,
+                 suppress_health_check=list(HealthCheck), print_blob=True)
+
+_KIND = st.sampled_from(KINDS)
+_SEED = st.integers(min_value=0, max_value=2**32 - 1)
+
+
+def _mapping(f) -> Mapping:
+    return Mapping(score=f.score, label=f.label, positive_label="1")
+
+
+def _core(f):
+    """(dataset, None) or (None, error) from the core's load_dataset on the file's bytes."""
+    try:
+        return load_dataset(f.data, _mapping(f), file_name=f.name), None
+    except Exception as exc:  # judged by check_outcome: only InputError passes
+        return None, exc
+
+
+def _pick_argv(path) -> list[str]:
+    return ["pick", str(path), "--score", "score", "--label", "label", "--positive", "1",
+            "--replicates", "50"]
+
+
+def _cli(f, folder: Path) -> tuple[int, str]:
+    """(exit code, stderr) of ``fulcrum pick FILE`` run in-process on the file."""
+    path = folder / f.name
+    path.write_bytes(f.data)
+    err, out = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out):
+        code = cli_main(_pick_argv(path))
+    return code, err.getvalue()
+
+
+def _check_cli(f, code: int, stderr: str, core_error) -> str:
+    where = f"{f.kind} seed {f.seed} ({f.name})"
+    assert code in (0, 2), f"{where}: exit {code}: {stderr}"
+    if code == 2:
+        lines = stderr.splitlines()
+        assert len(lines) == 1 and lines[0].startswith("fulcrum: "), f"{where}: {stderr!r}"
+        assert "Traceback" not in stderr
+        if core_error is not None:  # the same sentence as the core's, word for word
+            assert lines[0] == f"fulcrum: {core_error}", where
+        return "exit 2"
+    assert core_error is None, f"{where}: the CLI accepted what the core refused: {core_error}"
+    assert stderr == "", f"{where}: {stderr!r}"
+    return "exit 0"
+
+
+def test_fuzz_intake_core_and_cli(tmp_path_factory, capsys):
+    folder = tmp_path_factory.mktemp("fuzz_cli")
+    core_tally: Counter = Counter()
+    cli_tally: Counter = Counter()
+    kinds: Counter = Counter()
+
+    @_FUZZ
+    @given(kind=_KIND, seed=_SEED)
+    def case(kind, seed):
+        f = make_file(kind, seed)
+        dataset, error = _core(f)
+        core_tally[check_outcome(f, dataset, error)] += 1
+        code, stderr = _cli(f, folder)
+        cli_tally[_check_cli(f, code, stderr, error)] += 1
+        kinds[kind] += 1
+
+    case()
+    tried = sum(core_tally.values())
+    assert tried >= N_FILES and sum(cli_tally.values()) == tried
+    assert core_tally["loaded"] > 0.2 * tried and core_tally["refused"] > 0.2 * tried
+    assert len(kinds) == len(set(KINDS))
+    report(capsys, "fuzz_intake_core",
+           f"fuzz intake (core load_dataset): {tried:,} files tried, {tried:,} held "
+           f"({core_tally['loaded']:,} loaded with the numbers written, {core_tally['refused']:,} "
+           f"refused with an InputError naming the column or file and the rows)",
+           tried=tried, held=tried, loaded=core_tally["loaded"], refused=core_tally["refused"],
+           kinds=dict(kinds))
+    report(capsys, "fuzz_intake_cli",
+           f"fuzz intake (fulcrum pick, in-process main(argv)): {tried:,} files tried, {tried:,} "
+           f"held ({cli_tally['exit 0']:,} exit 0, {cli_tally['exit 2']:,} exit 2 with one line, "
+           f"the core's sentence word for word)",
+           tried=tried, held=tried, exit_0=cli_tally["exit 0"], exit_2=cli_tally["exit 2"])
+
+
+def _fixed_files(n: int, offset: int) -> list:
+    """n files, every kind in turn, seeds from ``offset`` (the same files every run)."""
+    kinds = sorted(set(KINDS))
+    return [make_file(kinds[i % len(kinds)], offset + i) for i in range(n)]
+
+
+def test_fuzz_intake_real_subprocesses(tmp_path, capsys):
+    files = _fixed_files(N_SUBPROCESS, 10_000)
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    tally: Counter = Counter()
+    for f in files:
+        _, error = _core(f)
+        path = tmp_path / f"{f.seed}-{f.name}"
+        path.write_bytes(f.data)
+        proc = subprocess.run([sys.executable, "-m", "core", *_pick_argv(path)], capture_output=True,
+                              text=True, env=env, cwd=tmp_path, timeout=300)
+        assert proc.returncode in (0, 2), (f.kind, f.seed, proc.stderr)
+        if proc.returncode == 2:
+            lines = proc.stderr.splitlines()
+            assert len(lines) == 1 and lines[0].startswith("fulcrum: "), (f.kind, proc.stderr)
+            if error is not None:
+                assert lines[0] == f"fulcrum: {error}".replace(f.name, path.name), f.kind
+        else:
+            assert error is None and "Threshold" in proc.stdout, (f.kind, f.seed)
+        tally[proc.returncode] += 1
+    assert tally[2] > 0
+    report(capsys, "fuzz_intake_subprocess",
+           f"fuzz intake (python -m core pick, real processes): {len(files)} files tried, "
+           f"{len(files)} held ({tally[0]} exit 0, {tally[2]} exit 2 with one line, no traceback)",
+           tried=len(files), held=len(files), exit_0=tally[0], exit_2=tally[2])
+
+
+def test_fuzz_intake_app_uploads(capsys):
+    """About 100 uploads through the Scores page (AppTest drives st.file_uploader)."""
+    from streamlit.testing.v1 import AppTest
+
+    files = _fixed_files(N_APP, 20_000)
+    at = AppTest.from_file(APP, default_timeout=120)
+    at.run()
+    assert not at.exception
+    at.radio(key="scores_source").set_value("upload").run()
+    tally: Counter = Counter()
+    allowed = (".csv", ".tsv", ".txt", ".gz", ".parquet", ".pq", ".xlsx", ".xlsm")
+    for f in files:
+        if not f.name.endswith(allowed):  # the uploader only offers these extensions
+            f.name = Path(f.name).stem + ".csv"
+        _, error = _core(f)
+        at.file_uploader(key="scores_upload").set_value((f.name, f.data, "application/octet-stream"))
+        at.run()
+        assert not at.exception, (f.kind, f.seed, at.exception)
+        shown = [e.value for e in at.error]
+        mapped = {w.key for w in at.selectbox}
+        if "map_score" in mapped and "map_label" in mapped and not shown:
+            cols = at.selectbox(key="map_score").options
+            if "score" in cols and "label" in cols:
+                at.selectbox(key="map_score").set_value("score")
+                at.selectbox(key="map_label").set_value("label").run()
+                assert not at.exception, (f.kind, f.seed, at.exception)
+                if "map_positive" in {w.key for w in at.selectbox}:
+                    opts = at.selectbox(key="map_positive").options
+                    one = [o for o in opts if o.split(" (")[0] in ("1", "1.0", "True")]
+                    if one:
+                        at.selectbox(key="map_positive").set_value(one[0].split(" (")[0])
+                at.button(key="map_apply").click().run()
+                assert not at.exception, (f.kind, f.seed, at.exception)
+                shown = [e.value for e in at.error]
+        if shown:
+            assert all("Traceback" not in s and s.strip() for s in shown), (f.kind, f.seed, shown)
+            if error is not None and isinstance(error, InputError):
+                # the page shows the intake's own sentence (read step or mapping step)
+                assert any(s == str(error) for s in shown) or f.kind in ("random_bytes", "damaged",
+                                                                         "encodings"), \
+                    (f.kind, f.seed, shown, str(error))
+            tally["message"] += 1
+        else:
+            tally["loaded" if any(s.value.startswith("Loaded") for s in at.success) else "read"] += 1
+    report(capsys, "fuzz_intake_app",
+           f"fuzz intake (Scores page uploads, AppTest): {len(files)} files tried, {len(files)} held "
+           f"({tally['loaded']} loaded, {tally['message']} refused with the intake's message, "
+           f"{tally['read']} read and waiting for a mapping; no exception, no traceback)",
+           tried=len(files), held=len(files), **dict(tally))
