@@ -21,6 +21,8 @@ from core.memo_content import Block, fmt_count, fmt_num, fmt_pct
 
 __all__ = [
     "per_period_header",
+    "policy_now_header",
+    "policy_now_rows",
     "per_period_rows",
     "policy_value",
     "recheck_blocks",
@@ -55,6 +57,36 @@ def rule_line(v: dict) -> str:
     """One rule verdict in one line: label, limit, observed, bounds, verdict."""
     return (f"{v['label']} {_val(v['name'], v['limit'])}: observed {_val(v['name'], v['value'])}, "
             f"{_bounds(v)} -- {v['verdict'].upper()}")
+
+
+def policy_now_header(now: dict) -> tuple:
+    """The header of the "chosen now" table (the period named)."""
+    period = (now.get("approved_threshold_now") or {}).get("period") or "period"
+    return ("Point", "Threshold", "Flagged cases", "Recall", f"Cost per {period}",
+            f"Flagged per {period}")
+
+
+def policy_now_rows(now: dict) -> list[tuple]:
+    """Rows of that table: approval, approved threshold now, the choice now, the difference."""
+    def row(name, p):
+        if not p:
+            return (name, "—", "—", "—", "—", "—")
+        c = p.get("counts") or {}
+        flagged = None if not c else c["tp"] + c["fp"]
+        return (name, str(p["threshold"]), fmt_count(flagged), _pct(p.get("recall")),
+                fmt_num(p.get("cost_per_period"), 1), fmt_num(p.get("flagged_per_period"), 1))
+
+    rows = [row("At approval (approval data)", now["approval"]),
+            row("Approved threshold, new data", now["approved_threshold_now"]),
+            row("Chosen now, new data", now.get("chosen_now"))]
+    if now.get("chosen_now") is None and now.get("unconstrained_now"):
+        rows.append(row("Objective's best now, ignoring the rules", now["unconstrained_now"]))
+    diff = now.get("difference")
+    if diff:
+        rows.append((f"Difference ({now.get('difference_basis')} - approved, new data)",
+                     fmt_num(diff["threshold"], 4), fmt_count(diff["flagged"]), "",
+                     fmt_num(diff["cost_per_period"], 1), fmt_num(diff["flagged_per_period"], 1)))
+    return rows
 
 
 def policy_value(x) -> str:
@@ -251,28 +283,8 @@ def recheck_blocks(rec: dict) -> list[Block]:
         b.append(Block("p", "The rule verdicts above and this choice use the same policy: the "
                             "record's."))
 
-    def row(name, p):
-        if not p:
-            return (name, "—", "—", "—", "—", "—")
-        c = p.get("counts") or {}
-        flagged = None if not c else c["tp"] + c["fp"]
-        return (name, str(p["threshold"]), fmt_count(flagged), _pct(p.get("recall")),
-                fmt_num(p.get("cost_per_period"), 1), fmt_num(p.get("flagged_per_period"), 1))
-
-    rows = [row("At approval (approval data)", now["approval"]),
-            row("Approved threshold, new data", now["approved_threshold_now"]),
-            row("Chosen now, new data", now.get("chosen_now"))]
-    if now.get("chosen_now") is None and now.get("unconstrained_now"):
-        rows.append(row("Objective's best now, ignoring the rules", now["unconstrained_now"]))
-    diff = now.get("difference")
-    if diff:
-        rows.append((f"Difference ({now.get('difference_basis')} - approved, new data)", fmt_num(diff["threshold"], 4),
-                     fmt_count(diff["flagged"]), "", fmt_num(diff["cost_per_period"], 1),
-                     fmt_num(diff["flagged_per_period"], 1)))
-    period = now["approved_threshold_now"].get("period") or "period"
-    b.append(Block("table", header=("Point", "Threshold", "Flagged cases", "Recall",
-                                    f"Cost per {period}", f"Flagged per {period}"),
-                   rows=tuple(rows), widths=(0.3, 0.12, 0.14, 0.12, 0.16, 0.16)))
+    b.append(Block("table", header=policy_now_header(now), rows=tuple(policy_now_rows(now)),
+                   widths=(0.3, 0.12, 0.14, 0.12, 0.16, 0.16)))
     fpp = now.get("flags_per_period")
     if fpp:
         b.append(Block("h2", "Flagged cases per period"))
