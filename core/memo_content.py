@@ -337,6 +337,10 @@ def memo_blocks(record: dict) -> list[Block]:
     if record["cautions"].get("few_events"):
         add(Block("caution", record["cautions"]["few_events"]))
     add(Block("caution", _regulatory(record)))
+    if record.get("comparison"):
+        from core.compare_memo import comparison_summary_line
+
+        add(Block("p", comparison_summary_line(record["comparison"]) + " See section 14."))
     add(Block("strong", _signoff_state(record)))
     if record["memo"]["sign_off"].get("decision") and record["memo"]["sign_off"].get("conditions"):
         add(Block("p", f"Conditions: {record['memo']['sign_off']['conditions']}"))
@@ -588,6 +592,11 @@ def memo_blocks(record: dict) -> list[Block]:
     add(Block("kv", rows=tuple(kv)))
     for s in an.get("statements", [])[2:]:
         add(Block("p", _sentence(s)))
+    if record.get("comparison"):
+        from core.compare_memo import comparison_blocks
+
+        b.extend(comparison_blocks(record["comparison"],
+                                   heading="14. Comparison with other score versions"))
     return b
 
 

@@ -871,12 +871,16 @@ def _utc_now() -> str:
 
 
 def build_record(analysis, *, memo_fields=None, supersedes: str | None = None,
-                 created_utc: str | None = None) -> dict:
+                 created_utc: str | None = None, comparison=None) -> dict:
     """The sealed decision record of an :class:`core.decision.Analysis`.
 
     ``memo_fields`` (see :mod:`core.memo_fields`) become the ``memo`` object;
     ``supersedes`` is the ``integrity.sha256`` of the record this one
     replaces; ``created_utc`` defaults to now (ISO 8601, seconds, "Z").
+    ``comparison`` (optional) is a :class:`core.compare.Comparison` of the
+    dataset's score with its extra score columns (computed on the same
+    dataset); it becomes the optional ``comparison`` key (covered by its own
+    digest in ``integrity.sections``) and the memo's comparison section.
     """
     from core import __version__
     from core.memo_fields import check_memo_fields
@@ -929,6 +933,10 @@ def build_record(analysis, *, memo_fields=None, supersedes: str | None = None,
         "curves": _curves(a),
         "cautions": _cautions(a),
     }
+    if comparison is not None:
+        if comparison.data.get("fingerprint") != a.dataset.fingerprint:
+            raise InputError("comparison", "was computed on other data than this decision's")
+        rec["comparison"] = comparison.to_dict()
     rec = json_safe(rec)
     rec["threshold"] = json_safe(s_k)
     return seal(rec)
