@@ -171,3 +171,44 @@ def test_bad_policy_file_exits_2(decision, tmp_path):
                str(decision / "decision.json"), "--as-of", AS_OF, "--policy", str(bad)])
     assert res.returncode == 2 and "min_recall" in res.stderr and "bad.toml" in res.stderr
     assert len(res.stderr.strip().splitlines()) == 1
+
+
+def test_recheck_page_policy_editor_reruns_only_the_choice_now(q2_run):
+    # the page's policy editor starts from the record's resolved policy; a wider capacity gives
+    # the same record as `fulcrum recheck --policy` would: verdicts unchanged, a choice now
+    import datetime as dt
+
+    from streamlit.testing.v1 import AppTest
+
+    from core.policy import Policy
+    from core.recheck import rechoose, record_policy
+
+    _, out = q2_run
+    decision = load_record(out / "decision.json")
+    at = AppTest.from_file(str(ROOT / "app" / "main.py"), default_timeout=300)
+    at.session_state["fulcrum_memo_record"] = decision
+    at.run()
+    at.switch_page("views/recheck.py").run()
+    at.date_input(key="recheck_as_of").set_value(dt.date(2025, 9, 30)).run()
+    at.number_input(key="recheck_reps").set_value(int(REPS)).run()
+    assert not at.exception, at.exception
+    before = at.session_state["fulcrum_recheck_record"]
+    assert before["policy_now"]["policy_source"] == "record"
+    # pre-filled with the record's resolved policy
+    assert at.number_input(key="recheck_policy_cap").value == 320.0
+    assert at.number_input(key="recheck_policy_prev").value == 0.02
+    at.number_input(key="recheck_policy_cap").set_value(400.0).run()
+    assert not at.exception, at.exception
+    after = at.session_state["fulcrum_recheck_record"]
+    assert after["rules"] == before["rules"] and after["summary"] == before["summary"]
+    assert after["policy_now"]["changes"] == [{"key": "rules.max_flagged_per_period",
+                                               "old": 320.0, "new": 400.0, "source": "file"}]
+    d = record_policy(decision).to_dict()
+    d["rules"]["max_flagged_per_period"] = 400.0
+    base = recheck(decision, demo_path("hospital_q2"), as_of=AS_OF, n_replicates=int(REPS))
+    assert after["policy_now"] == build_recheck_record(rechoose(base, Policy.from_dict(d)))["policy_now"]
+    shown = " ".join(w.value for w in at.warning).replace("\\", "")  # Markdown escapes off
+    assert "judged against the decision record's policy" in shown
+    assert "rules.max_flagged_per_period 320 -> 400" in shown
+    # the Decide page's own policy is untouched
+    assert "fulcrum_policy" not in at.session_state or at.session_state["fulcrum_policy"] is None

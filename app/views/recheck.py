@@ -5,7 +5,10 @@ Memo page) and new labelled scores (the demo's second quarter, or an upload
 kept in this session's memory), then calls the same core functions as
 ``fulcrum recheck`` (:func:`core.recheck.recheck`,
 :func:`core.recheck.build_recheck_record`), so their recheck records agree
-but for the time. No statistics live here.
+but for the time. An expander holds the policy editor (:mod:`app.policy_form`,
+its own keys, started from the record's resolved policy): a change reruns only
+"what would be chosen now" (:func:`core.recheck.rechoose`), like ``fulcrum
+recheck --policy``. No statistics live here.
 """
 
 from __future__ import annotations
@@ -16,11 +19,28 @@ import pandas as pd
 import streamlit as st
 
 from app import format as fmt
+from app import policy_form
 from core import cautions
 from core.errors import InputError
 from core.intake import demo_path
-from core.recheck import build_recheck_record, dumps_recheck, recheck
-from core.recheck_memo import recheck_markdown, rule_line
+from core.policy import dumps_policy
+from core.recheck import (
+    build_recheck_record,
+    dumps_recheck,
+    policy_changes,
+    recheck,
+    rechoose,
+    record_policy,
+)
+from core.recheck_memo import (
+    per_period_header,
+    per_period_rows,
+    policy_now_header,
+    policy_now_rows,
+    policy_value,
+    recheck_markdown,
+    rule_line,
+)
 from core.record import dumps_record, loads_record
 
 K = "recheck_"
@@ -29,6 +49,9 @@ RESULT = "fulcrum_recheck_result"          # (inputs key, RecheckResult)
 RECORD = "fulcrum_recheck_record"          # the sealed recheck record shown (JSON-safe dict)
 CREATED = "fulcrum_recheck_created"        # inputs key -> created_utc, so a rerun keeps the time
 PDF = "fulcrum_recheck_pdf"                # (recheck sha256, PDF bytes)
+NOW = "fulcrum_recheck_now"                # ((inputs key, changed policy TOML), sealed record)
+POLICY_DICT = "fulcrum_recheck_policy"     # the recheck's own policy editor (not the Decide page's)
+POLICY_KEYS = K + "policy_"                # its widget-key prefix
 DEMO_Q2 = "Demo: hospital, second quarter"
 MEMO_SOURCE = "The record built on the Memo page"
 UPLOAD_SOURCE = "Upload a decision record (JSON)"
@@ -113,21 +136,59 @@ def _settings(record):
 
 
 def _run(record, source, ident, as_of, live, over, reps, seed):
+    """(inputs key, RecheckResult with the record's policy), computed once per inputs."""
     ss = st.session_state
     key = (record["integrity"]["sha256"], ident, str(as_of), live, tuple(sorted(over.items())),
            reps, seed)
     got = ss.get(RESULT)
     if got is not None and got[0] == key:
-        return got[1]
+        return got
     with st.spinner("Rechecking…"):
         result = recheck(record, source, as_of=str(as_of), live=live, mapping_override=over,
                          n_replicates=reps, seed=seed)
     ss[RESULT] = (key, result)
+    return ss[RESULT]
+
+
+def _policy_editor(record, result):
+    """The policy editor, started from the record's resolved policy; the changed Policy or None.
+
+    None when the editor holds the record's policy (no key differs) or a
+    policy with problems (shown by the editor).
+    """
+    start = record_policy(record, result.mature).to_dict()
+    with st.expander("Change the policy for what would be chosen now (the verdicts above keep "
+                     "the record's policy)"):
+        st.caption("Starts from the decision record's resolved policy, its deployment prevalence "
+                   "included. A change here reruns only this part; the rule verdicts, subgroups, "
+                   "drift and calibration are judged against the record's policy (the approval).")
+        policy = policy_form.render(result.mature, pre=POLICY_KEYS, store=POLICY_DICT,
+                                    store_fp=POLICY_DICT + "_fp", start=start, title=None)
+    if policy is None:
+        return None
+    try:
+        changed = policy_changes(record, policy, result.mature)
+    except InputError as exc:
+        st.error(str(exc))
+        return None
+    return policy if changed else None
+
+
+def _final_record(key, result, policy) -> dict:
+    """The sealed recheck record shown and exported (the changed policy's choice now, if any)."""
+    ss = st.session_state
+    pkey = None if policy is None else dumps_policy(policy)
+    full = (key, pkey)
+    got = ss.get(NOW)
+    if got is not None and got[0] == full:
+        return got[1]
+    res = result if policy is None else rechoose(result, policy)
     created = ss.setdefault(CREATED, {})
-    rec = build_recheck_record(result, created_utc=created.get(key))
-    created[key] = rec["created_utc"]
+    rec = build_recheck_record(res, created_utc=created.get(full))
+    created[full] = rec["created_utc"]
+    ss[NOW] = (full, rec)
     ss[RECORD] = rec
-    return result
+    return rec
 
 
 def _build_pdf() -> None:
@@ -138,26 +199,36 @@ def _build_pdf() -> None:
         st.session_state[PDF] = (rec["integrity"]["sha256"], recheck_pdf(rec))
 
 
-def _show(rec: dict) -> None:
+def _show_top(rec: dict) -> None:
+    """Everything judged against the record's policy: summary, rules, groups, drift, calibration."""
     word = rec["overall_verdict"]
     box = {"holds": st.success, "fails": st.error}.get(word, st.warning)
-    box(f"**{rec['summary']}** — overall: {word}")
+    box(f"**{_md(rec['summary'])}** — overall: {word}")
+    ov = rec["groups"].get("overlaps")
+    if ov:
+        st.info(_md(ov["statement"]))
     st.caption(rec["maturity"]["statement"])
     if rec.get("model_effect"):
-        st.warning(rec["model_effect"])
+        st.warning(_md(rec["model_effect"]))
     for s in rec["statements"][1:]:
         if s != rec.get("model_effect"):
-            st.warning(s)
+            st.warning(_md(s))
     st.subheader("Rules at the approved threshold")
     for v in rec["rules"]:
-        st.markdown(f"- {rule_line(v)}  \n  {v['reason']}")
+        st.markdown(f"- {_md(rule_line(v))}  \n  {_md(v['reason'])}")
     st.subheader("Subgroups")
-    rows = [{"group": f"{g['column']} = {g['group']}", "rule": v["label"],
-             "now": fmt.pct(v["value"]), "lower bound": fmt.pct(v["lower"]),
-             "upper bound": fmt.pct(v["upper"]), "verdict": v["verdict"]}
-            for g in rec["groups"]["compared"] for v in g["verdicts"]]
+    rows = []
+    for g in rec["groups"]["compared"]:
+        for v in g["verdicts"]:
+            ref = (g.get("reference_values") or {}).get(v["name"].split("_", 1)[1]) or {}
+            rows.append({"group": f"{g['column']} = {g['group']}", "rule": v["label"],
+                         "at approval": fmt.pct(ref.get("value")), "now": fmt.pct(v["value"]),
+                         "lower bound": fmt.pct(v["lower"]), "upper bound": fmt.pct(v["upper"]),
+                         "verdict": v["verdict"]})
     if rows:
-        st.dataframe(pd.DataFrame(rows), hide_index=True, use_container_width=True)
+        st.dataframe(pd.DataFrame(rows), hide_index=True, width="stretch")
+    if ov:
+        st.caption("Overlapping groups: " + ov["method"] + ".")
     st.caption("New groups: " + (", ".join(rec["groups"]["new"]) or "none") + ". Vanished groups: "
                + (", ".join(rec["groups"]["vanished"]) or "none") + ".")
     for n in rec["groups"]["notes"]:
@@ -170,15 +241,41 @@ def _show(rec: dict) -> None:
         "95 % interval": "—" if c["low"] is None else
         f"{100 * c['low']:+.2f} to {100 * c['high']:+.2f} pts",
         "changed": "yes" if c["changed"] else "no"} for c in rec["comparison"]["metrics"]]),
-        hide_index=True, use_container_width=True)
+        hide_index=True, width="stretch")
     st.caption(rec["comparison"]["method"])
     st.subheader("Drift of the scores")
     for s in rec["drift"]["statements"]:
-        st.markdown(f"- {s}")
+        st.markdown(f"- {_md(s)}")
     st.subheader("Calibration drift")
-    st.markdown(rec["calibration_drift"]["statement"])
-    st.subheader("What the same policy would choose now")
-    st.markdown(rec["policy_now"]["policy_note"] + " " + rec["policy_now"]["statement"])
+    st.markdown(_md(rec["calibration_drift"]["statement"]))
+
+
+def _table(header, rows) -> pd.DataFrame:
+    return pd.DataFrame([dict(zip(header, r)) for r in rows])
+
+
+def _show_now(rec: dict) -> None:
+    """What the policy (the record's, or the changed one) would choose on the new data."""
+    now = rec["policy_now"]
+    changed = now.get("policy_source") == "changed"
+    box = st.warning if changed else st.markdown
+    box(_md(now["policy_note"] + " " + now["statement"]))
+    if changed:
+        st.dataframe(_table(("policy key", "record's policy (approval)", "used now", "source now"),
+                            [(c["key"], policy_value(c["old"]), policy_value(c["new"]),
+                              c.get("source") or "—") for c in now["changes"]]),
+                     hide_index=True, width="stretch")
+    st.dataframe(_table(policy_now_header(now), policy_now_rows(now)), hide_index=True,
+                 width="stretch")
+    fpp = now.get("flags_per_period")
+    if fpp:
+        st.markdown("**Flagged cases per period**")
+        st.dataframe(_table(per_period_header(fpp), per_period_rows(fpp)), hide_index=True,
+                     width="stretch")
+        st.caption(fpp["note"])
+
+
+def _show_exports(rec: dict) -> None:
     st.subheader("Exports")
     stem = "recheck"
     d1, d2, d3 = st.columns(3)
@@ -196,6 +293,13 @@ def _show(rec: dict) -> None:
                f"{rec['integrity']['sha256']}.")
 
 
+def _md(text: str) -> str:
+    """Plain text for st.markdown: characters Markdown would read as markup are escaped."""
+    for ch in ("\\", "*", "_", "`", "[", "]", "<", ">", "#", "|", "~", "$"):
+        text = text.replace(ch, "\\" + ch)
+    return text
+
+
 st.title("Recheck")
 st.caption("Does the approved threshold still meet its rules on new labelled scores? What "
            "moved, and what would the same policy choose now?")
@@ -206,7 +310,12 @@ if record is not None and source is not None:
     over = _overrides(record)
     as_of, live, reps, seed = _settings(record)
     try:
-        _run(record, source, ident, as_of, live, over, reps, seed)
-        _show(st.session_state[RECORD])
+        key, result = _run(record, source, ident, as_of, live, over, reps, seed)
+        _show_top(_final_record(key, result, None))
+        st.subheader("What the policy would choose now")
+        changed = _policy_editor(record, result)
+        rec = _final_record(key, result, changed)
+        _show_now(rec)
+        _show_exports(rec)
     except InputError as exc:
         st.error(str(exc))
