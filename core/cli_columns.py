@@ -18,10 +18,13 @@ policy's ``false_negative_column`` names that column.
 
 from __future__ import annotations
 
+import sys
+
 from core.errors import InputError
 
 __all__ = ["add_counts_arguments", "check_counts_exclusive", "counts_mapping_from_args",
-           "COUNTS_CLASHES", "COUNTS_COLUMNS"]
+           "add_reduce_arguments", "check_reduce_options", "reduce_from_args",
+           "reduce_progress_printer", "COUNTS_CLASHES", "COUNTS_COLUMNS"]
 
 #: option dest -> (option as typed, why a count table cannot take it)
 COUNTS_CLASHES = {
@@ -134,3 +137,84 @@ def counts_mapping_from_args(args):
                    groups=tuple(getattr(args, "group", None) or ()),
                    higher_is_riskier=not getattr(args, "lower_is_riskier", False),
                    drop_missing_scores=bool(getattr(args, "drop_missing_scores", False)))
+
+
+# =========================================================================== --reduce
+
+#: per-case options a reduction cannot carry into its count table
+_REDUCE_CLASHES = ("cluster", "score_time", "outcome_time", "outcome_horizon_days")
+
+
+def add_reduce_arguments(group) -> None:
+    """Add ``--reduce``, ``--decimals N`` and ``--memory-limit SIZE``.
+
+    ``--reduce`` reads a Parquet or CSV file of one row per case with DuckDB
+    (:func:`core.reduce.reduce_file`) without loading it into memory, and
+    goes on with the count table it gives.
+    """
+    group.add_argument("--reduce", action="store_true",
+                       help="DATA is a Parquet or CSV file too large to load: count it with DuckDB "
+                            "(in-process, memory limit, 2 threads, a private temporary folder) into "
+                            "a count table, then go on with that")
+    group.add_argument("--decimals", metavar="N", type=int,
+                       help="with --reduce: round the scores to N decimals toward the non-flagged "
+                            "side first (exact at every threshold on that grid; the memo states "
+                            "the largest effect elsewhere); default: keep every distinct score")
+    group.add_argument("--memory-limit", metavar="SIZE", default="1GB",
+                       help="with --reduce: DuckDB's memory limit (default: 1GB)")
+
+
+def check_reduce_options(args) -> None:
+    """The ``--reduce`` options once: exclusive with ``--counts`` and the per-case columns."""
+    if not getattr(args, "reduce", False):
+        for dest, opt in (("decimals", "--decimals"),):
+            if getattr(args, dest, None) is not None:
+                raise InputError(opt, "needs --reduce: only a reduction rounds the scores")
+        return
+    if getattr(args, "counts", False):
+        raise InputError("--reduce", "cannot be used with --counts: DATA is already a count table")
+    for dest in _REDUCE_CLASHES:
+        if _given(args, dest):
+            opt, why = COUNTS_CLASHES[dest]
+            raise InputError(opt, f"cannot be used with --reduce: the reduction gives a count "
+                                  f"table, and {why}")
+    if getattr(args, "sheet", None) is not None:
+        raise InputError("--sheet", "cannot be used with --reduce: it reads Parquet or CSV files, "
+                                    "not Excel")
+
+
+def reduce_progress_printer(label: str, stream=None):
+    """``progress(fraction, stage)`` printing a line per stage and per 10 % on a terminal, else None.
+
+    ``stream`` defaults to stderr; nothing is printed unless it is a
+    terminal (``isatty()``), so pipes and logs stay clean.
+    """
+    out = sys.stderr if stream is None else stream
+    if not out.isatty():
+        return None
+    state = {"stage": None, "tenth": -1}
+
+    def progress(fraction, stage):
+        tenth = int(10 * max(0.0, min(1.0, float(fraction))))
+        if stage != state["stage"] or tenth > state["tenth"]:
+            state["stage"], state["tenth"] = stage, tenth
+            print(f"fulcrum: reducing {label}: {stage} ({10 * tenth} %)", file=out, flush=True)
+
+    return progress
+
+
+def reduce_from_args(args, mapping, *, progress=None):
+    """Reduce ``args.data`` with the row ``mapping`` (:func:`core.reduce.reduce_file`).
+
+    Without an event value, labels 0/1 (true/false) take 1 (true) as the
+    event, as ``fulcrum pick`` reads a row file.
+    """
+    from core.reduce import reduce_file
+
+    check_reduce_options(args)
+    return reduce_file(args.data, score=mapping.score, label=mapping.label,
+                       positive=mapping.positive_label, weight=mapping.weight,
+                       weight_kind=mapping.weight_kind, case_cost=mapping.case_cost,
+                       groups=mapping.groups, higher_is_riskier=mapping.higher_is_riskier,
+                       drop_missing_scores=mapping.drop_missing_scores, decimals=args.decimals,
+                       memory_limit=args.memory_limit, progress=progress, default_positive=True)

@@ -14,7 +14,15 @@ import sys
 from pathlib import Path
 
 from core.bootstrap import DEFAULT_REPLICATES
-from core.cli_columns import add_counts_arguments, check_counts_exclusive, counts_mapping_from_args
+from core.cli_columns import (
+    add_counts_arguments,
+    add_reduce_arguments,
+    check_counts_exclusive,
+    check_reduce_options,
+    counts_mapping_from_args,
+    reduce_from_args,
+    reduce_progress_printer,
+)
 from core.decision import DEFAULT_POLICY, ORIGINS
 from core.errors import InputError
 
@@ -61,6 +69,7 @@ def add_pick(sub) -> None:
     g.add_argument("--lower-is-riskier", action="store_true",
                    help="a lower score means higher risk (flag when score <= threshold)")
     add_counts_arguments(p.add_argument_group("count table (instead of one row per case)"))
+    add_reduce_arguments(p.add_argument_group("files larger than memory"))
     a = p.add_argument_group("analysis")
     a.add_argument("--design", choices=("cohort", "case-control"), default="cohort",
                    help="how the validation cases were sampled (default: cohort)")
@@ -134,7 +143,11 @@ def _load(args):
     """Read and check the data exactly as the app does (same messages)."""
     from core.intake import _mapped_columns, load_dataset, read_table
 
+    check_reduce_options(args)
     mapping = mapping_from_args(args)
+    if args.reduce:
+        return reduce_from_args(args, mapping,
+                                progress=reduce_progress_printer(Path(args.data).name))
     if mapping.kind == "counts":
         from core.intake import load_count_table
 

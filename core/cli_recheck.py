@@ -15,7 +15,14 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from core.cli_columns import add_counts_arguments, check_counts_exclusive
+from core.cli_columns import (
+    add_counts_arguments,
+    add_reduce_arguments,
+    check_counts_exclusive,
+    check_reduce_options,
+    reduce_from_args,
+    reduce_progress_printer,
+)
 from core.errors import InputError
 
 __all__ = ["add_recheck", "override_from_args", "recheck_summary_lines", "run_recheck"]
@@ -63,6 +70,7 @@ def add_recheck(sub) -> None:
     add_counts_arguments(p.add_argument_group(
         "count table (instead of one row per case; --events and --non-events are required unless "
         "the record's data were a count table)"))
+    add_reduce_arguments(p.add_argument_group("files larger than memory"))
     a = p.add_argument_group("recheck")
     a.add_argument("--as-of", metavar="DATE",
                    help="label maturity as of this date (ISO 8601; default: today)")
@@ -113,6 +121,41 @@ def override_from_args(args, record: dict | None = None) -> dict:
     return over
 
 
+def reduced_source(args, record: dict):
+    """With ``--reduce``: the new file counted by DuckDB into a count-table Dataset, else None.
+
+    The rows are read with the record's row mapping updated by the options
+    (renamed columns, a new event value). A record made on a table that
+    ``--reduce`` counted names its source columns in ``data.reduction``; a
+    record made on another count table names none, so ``--label`` (and
+    ``--positive`` unless the labels are 0/1) must be given.
+    """
+    from core.dataset import Mapping
+
+    check_reduce_options(args)
+    if not args.reduce:
+        return None
+    data = record.get("data") or {}
+    base = dict(data.get("mapping") or {})
+    red = data.get("reduction")
+    if base.get("kind") == "counts":
+        for k in ("events", "non_events", "event_cost", "events_sq", "non_events_sq"):
+            base[k] = None
+        base["kind"] = "rows"
+        if red:
+            base.update(label=red.get("label"), positive_label=red.get("positive_label"),
+                        weight=red.get("weight"), weight_kind=red.get("weight_kind"),
+                        case_cost=red.get("case_cost"))
+        elif args.label is None:
+            raise InputError("--label", "is required with --reduce here: the decision record was "
+                                        "made on a count table and names no label column to count")
+    over = override_from_args(args, record)
+    mapping = Mapping.from_dict(base | over)
+    if mapping.label is None:
+        raise InputError("--label", "is required with --reduce: the label column to count")
+    return reduce_from_args(args, mapping, progress=reduce_progress_printer(Path(args.data).name))
+
+
 def run_recheck(args) -> int:
     """Run ``fulcrum recheck`` (see the module docstring)."""
     from core.recheck import build_recheck_record, exit_code, recheck, write_recheck
@@ -135,6 +178,7 @@ def run_recheck(args) -> int:
         from core.reading import read_table
 
         source = read_table(args.data, sheet=args.sheet)
+    source = reduced_source(args, record) or source
     result = recheck(record, source, as_of=args.as_of, live=args.live,
                      mapping_override=override_from_args(args, record), policy=policy,
                      n_replicates=reps, seed=seed)

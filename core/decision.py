@@ -221,8 +221,13 @@ def analyse(dataset: Dataset, policy: Policy, *, threshold: float | None = None,
     if threshold is not None and origin == "data-derived" and policy_choice.point is not None:
         from core.optimism import cross_fit, harrell_correction
 
-        rule_opt = (cross_fit(dataset, policy, k=folds, seed=seed),
-                    harrell_correction(dataset, policy, stability=ev.stability))
+        try:
+            rule_opt = (cross_fit(dataset, policy, k=folds, seed=seed),
+                        harrell_correction(dataset, policy, stability=ev.stability))
+        except InputError:
+            if dataset.kind != "counts":
+                raise
+            rule_opt = None  # a count table of weight sums cannot be split into folds
     groups, fairness, calib = _subgroup_sections(
         dataset, policy, float(dataset.curve().thresholds[ch.point.index]), confidence=confidence,
         n_replicates=n_replicates, seed=seed, progress=progress)

@@ -689,6 +689,9 @@ def resolve_policy(policy: Policy, data) -> ResolvedPolicy:
                             f"map the column {col!r} as the case cost")
         elif ds is not None:
             mapped = ds.mapping.case_cost if ds.kind == "rows" else ds.mapping.event_cost
+            red = getattr(ds, "reduction", None)
+            if red is not None and red.case_cost == col:
+                mapped = col  # a table reduced from rows: its event costs sum the rows' column
             # arrays given in a notebook (Dataset.from_arrays / from_count_table) carry no
             # source column names, only the generic ones
             generic = mapped in ("case_cost", "event_cost") and ds.file_name is None

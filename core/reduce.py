@@ -60,7 +60,7 @@ import pandas as pd
 
 from core.dataset import Dataset, IntakeWarning, Mapping
 from core.errors import InputError, format_rows
-from core.fingerprint import text_codes
+from core.fingerprint import text_codes, value_text
 from core.intake import (
     _check_mapping,
     _label_codes,
@@ -93,7 +93,7 @@ from core.sql import (
     rounding_check_sql,
 )
 
-__all__ = ["Reduction", "RoundingEffect", "reduce_file", "reduction_of"]
+__all__ = ["Reduction", "RoundingEffect", "file_columns", "reduce_file", "reduction_of"]
 
 _SAMPLE_BYTES = 1 << 16
 _SHOW_DROPPED = 100
@@ -234,6 +234,19 @@ def reduction_of(ds: Dataset) -> Reduction | None:
     The same as ``ds.reduction`` (the :class:`~core.dataset.Dataset` field).
     """
     return getattr(ds, "reduction", None)
+
+
+def file_columns(path, *, delimiter: str | None = None, decimal: str | None = None,
+                 memory_limit: str = "256MB") -> list[str]:
+    """The column names :func:`reduce_file` sees in a Parquet or CSV file, without reading rows.
+
+    Parquet: from the file's schema; CSV: from its header (delimiter detected
+    as :func:`reduce_file` detects it). Names are cleaned as the intake
+    cleans them (surrounding white space, blanks). For a mapping form before
+    the reduction runs.
+    """
+    with _Engine(memory_limit, 1, None, None) as engine:
+        return list(_open_source(path, engine, delimiter=delimiter, decimal=decimal).names)
 
 
 def _num(x: float) -> str:
@@ -638,7 +651,8 @@ def reduce_file(path, *, score: str, label: str | None = None, positive=None,
                 drop_missing_scores: bool = False, decimals: int | None = None,
                 delimiter: str | None = None, decimal: str | None = None,
                 memory_limit: str = "1GB", threads: int = 2, check_rounding: bool = True,
-                temp_dir: str | None = None, progress=None) -> Dataset:
+                temp_dir: str | None = None, progress=None,
+                default_positive: bool = False) -> Dataset:
     """Reduce a Parquet or CSV file of scored cases to a count-table Dataset, out of memory.
 
     Parameters
@@ -672,6 +686,10 @@ drop_missing_scores
         ``progress(fraction, stage)`` with ``fraction`` in [0, 1] of the whole
         job and ``stage`` a short text ("checking", "counting", "measuring
         the rounding"); called from the calling thread.
+    default_positive : bool, default False
+        Without ``positive``: when the label's two values are 0 and 1 (or
+        true and false) the event is 1 (true), as ``fulcrum pick`` reads a
+        row file; otherwise the error asks which value marks the event.
 
     Returns
     -------
@@ -705,7 +723,7 @@ drop_missing_scores
         for col, role in _mapped_columns(m).items():
             if col not in src.types:
                 raise missing_column_error(col, role, src.names, src.delimiter)
-        checked = _check(engine, src, m, d)
+        checked = _check(engine, src, m, d, default_positive=default_positive)
         clean = _clean_relation(src, m, checked)
         sql = reduction_sql(Relation(clean), score=m.score, label=m.label,
                             positive=checked.event_values, weight=m.weight,
@@ -843,7 +861,8 @@ def _combine(per: list) -> dict:
     return out
 
 
-def _check(engine: _Engine, src: _Source, m: Mapping, d: int | None) -> _Checked:
+def _check(engine: _Engine, src: _Source, m: Mapping, d: int | None, *,
+           default_positive: bool = False) -> _Checked:
     """Every check of the row-level intake, in its order, from one aggregate pass."""
     lab_type = src.types[m.label].split("(")[0]
     if lab_type not in _NUMERIC_TYPES + ("DECIMAL", "BOOLEAN", "VARCHAR"):
@@ -888,7 +907,8 @@ def _check(engine: _Engine, src: _Source, m: Mapping, d: int | None) -> _Checked
             f"{n_all - dropped:,} rows", m.score))
 
     # ---- label
-    event_values, matched, merged = _check_label(rows, src, m, per, tot)
+    event_values, matched, merged = _check_label(rows, src, m, per, tot,
+                                                 default_positive=default_positive)
     if merged:
         warnings.append(IntakeWarning(
             "label_whitespace",
@@ -984,8 +1004,8 @@ def _same(a, b) -> bool:
     return type(a) is type(b) and a == b
 
 
-def _check_label(rows: _Rows, src: _Source, m: Mapping, per: list, tot: dict
-                 ) -> tuple[list, object, bool]:
+def _check_label(rows: _Rows, src: _Source, m: Mapping, per: list, tot: dict, *,
+                 default_positive: bool = False) -> tuple[list, object, bool]:
     """The intake's label checks over the distinct raw values (first appearance first).
 
     ``per`` holds the most frequent values (all of them unless the column has
@@ -1023,6 +1043,12 @@ def _check_label(rows: _Rows, src: _Source, m: Mapping, per: list, tot: dict
                          rows.where(f"NOT {missing_sql} AND {lab} NOT IN ({lits})"),
                          hint="Recode it to two values, or choose another label column")
     positive = m.positive_label
+    if default_positive and (positive is None or (isinstance(positive, str) and not positive.strip())):
+        texts = {value_text(uniques[i]).strip().casefold() for i in np.flatnonzero(present)}
+        if texts <= {"0", "1"}:
+            positive = "1"
+        elif texts <= {"true", "false"}:
+            positive = "true"
     if positive is None or (isinstance(positive, str) and not positive.strip()):
         raise InputError(m.label, f"needs an event value: which of its values ({listing}) marks "
                                   f"the event?")

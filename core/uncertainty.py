@@ -555,11 +555,21 @@ def evidence(data, policy, *, threshold: float | None = None,
                            p.counts["fp"] + p.counts["tn"], rp.prevalence, rp,
                            missed_cost=p.missed_cost)
     if origin == "derived":
-        cf = cross_fit(data, policy, k=k, seed=seed, cells=cells)
         hc = _harrell_from(stab, design)
         statement = ("The threshold was derived from these data by the policy, so its apparent "
                      "values are optimistic; the cross-fitted and corrected values estimate how "
                      "the same rule performs on new cases.")
+        try:
+            cf = cross_fit(data, policy, k=k, seed=seed, cells=cells)
+        except InputError as exc:
+            if getattr(data, "kind", None) != "counts":
+                raise
+            # a weighted count table cannot be split into folds; the rest needs no rows
+            cf = None
+            statement += (f" Cross-fitting was not run ({exc.problem}): a count table of weight "
+                          "sums cannot be split into folds case by case, so only the "
+                          "bootstrap-corrected values are given; load the rows for cross-fitted "
+                          "ones.")
     else:
         cf = hc = None
         statement = ("The threshold was pre-specified (fixed before these data were seen): no "

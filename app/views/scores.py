@@ -11,7 +11,9 @@ from core.errors import InputError
 from core.summaries import class_histogram
 
 UPLOAD = "upload"
+LOCAL = "local"  # a large file on this machine, read in place by the reduction
 NONE = "(none)"
+DECIMAL_CHOICES = (None, 1, 2, 3, 4, 5, 6)
 
 
 def _demo_options() -> dict[str, str]:
@@ -154,6 +156,73 @@ def _upload_section() -> None:
         st.success(f"Loaded {upload.name}: {fmt.count(ds.n_rows)} cases, {fmt.count(ds.n_events)} events.")
 
 
+def _local_section() -> None:
+    """A large Parquet / CSV file on this machine: counted in place by DuckDB, never copied."""
+    from core.dataset import Mapping
+    from core.reduce import file_columns, reduce_file
+
+    st.caption("For files too large to upload: type the path of a Parquet or CSV file on this "
+               "machine (the app runs on 127.0.0.1). DuckDB reads it where it is, within a memory "
+               "limit, and counts it into a count table; no row is copied or kept.")
+    path = st.text_input("Path of the file on this machine", key="local_path",
+                         placeholder="/data/validation_scores.parquet").strip()
+    if not path:
+        return
+    from pathlib import Path
+
+    p = Path(path).expanduser()
+    try:
+        cols = file_columns(p)
+    except InputError as exc:
+        st.error(str(exc))
+        return
+    c1, c2, c3 = st.columns(3)
+    score = c1.selectbox("Score column", cols, key="local_score")
+    label = c2.selectbox("Label column", cols, index=min(1, len(cols) - 1), key="local_label")
+    positive = c3.text_input("Event value (empty: 1 for 0/1 labels, true for true/false)",
+                             key="local_positive").strip() or None
+    c4, c5, c6 = st.columns(3)
+    weight = c4.selectbox("Weight column", [NONE] + cols, key="local_weight")
+    weight = None if weight == NONE else weight
+    weight_kind = c5.selectbox("Weight kind", ["frequency", "sampling"], key="local_weight_kind",
+                               disabled=weight is None)
+    case_cost = c6.selectbox("Case cost column", [NONE] + cols, key="local_case_cost")
+    groups = st.multiselect("Group columns", cols, key="local_groups")
+    d1, d2 = st.columns(2)
+    decimals = d1.selectbox("Scores kept", DECIMAL_CHOICES, key="local_decimals",
+                            format_func=lambda d: "every distinct score (exact)" if d is None
+                            else f"rounded to {d} decimal{'s' if d > 1 else ''} toward "
+                                 "not flagged (exact on that grid)")
+    lower = d2.checkbox("Lower score = higher risk", key="local_lower")
+    if not st.button("Count this file", type="primary", key="local_apply"):
+        return
+    bar = st.progress(0.0, text="Starting the reduction…")
+
+    def progress(fraction, stage):
+        bar.progress(min(max(float(fraction), 0.0), 1.0), text=f"{stage.capitalize()}… "
+                                                                f"{float(fraction):.0%}")
+
+    try:
+        m = Mapping(score=score, label=label, positive_label=positive, weight=weight,
+                    weight_kind=weight_kind if weight else None, groups=tuple(groups),
+                    case_cost=None if case_cost == NONE else case_cost,
+                    higher_is_riskier=not lower)
+        ds = reduce_file(p, score=m.score, label=m.label, positive=m.positive_label,
+                         weight=m.weight, weight_kind=m.weight_kind, case_cost=m.case_cost,
+                         groups=m.groups, higher_is_riskier=m.higher_is_riskier,
+                         decimals=decimals, progress=progress, default_positive=True)
+    except InputError as exc:
+        bar.empty()
+        st.error(str(exc))
+        return
+    bar.progress(1.0, text="Counted.")
+    st.session_state[state.SOURCE] = LOCAL
+    state.set_dataset(ds, label=p.name)
+    st.success(f"Counted {p.name}: {fmt.count(ds.reduction.rows_read)} rows into "
+               f"{fmt.count(ds.reduction.table_rows)} count-table rows.")
+    st.caption(ds.reduction.statement())
+
+
 def _summary() -> None:
     act = state.active()
     ds = act.dataset
@@ -183,16 +252,19 @@ def render() -> None:
     st.title("Scores")
     caution_line()
     demos = _demo_options()
-    choices = list(demos) + [UPLOAD]
+    choices = list(demos) + [UPLOAD, LOCAL]
     current = st.session_state.get(state.SOURCE, state.DEMO_DEFAULT)
     source = st.radio("Data", choices, index=choices.index(current) if current in choices else 0,
-                      format_func=lambda c: demos.get(c, "Upload my own file"), key="scores_source",
+                      format_func=lambda c: demos.get(c, "A large file on this machine" if c == LOCAL
+                                                      else "Upload my own file"), key="scores_source",
                       horizontal=True)
-    if source != UPLOAD and source != current:
+    if source not in (UPLOAD, LOCAL) and source != current:
         st.session_state[state.SOURCE] = source
         state.set_dataset(state.demo_dataset(source), label=demos[source])
     if source == UPLOAD:
         _upload_section()
+    elif source == LOCAL:
+        _local_section()
     _summary()
 
 
