@@ -327,7 +327,10 @@ def _numbers(d: dict) -> dict:
 
 def _type_ok(kind: str, v) -> bool:
     if kind == "num":
-        return _is_num(v) and math.isfinite(float(v))
+        try:  # a TOML integer may exceed every float (1e400 written out): not a usable number
+            return _is_num(v) and math.isfinite(float(v))
+        except OverflowError:
+            return False
     if kind == "str":
         return isinstance(v, str)
     if kind == "strlist":

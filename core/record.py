@@ -968,6 +968,21 @@ class RestoredDecision:
     record_sha256: str
 
 
+def _whole(v) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+#: The optional ``analysis`` settings a record may carry, with their checks.
+_ANALYSIS_SETTINGS = {
+    "seed": (lambda v: _whole(v) and v >= 0, "a whole number >= 0"),
+    "n_replicates": (lambda v: _whole(v) and v >= 0, "a whole number >= 0"),
+    "confidence": (lambda v: _is_num(v) and 0 < v < 1, "a number between 0 and 1"),
+    "interval_method": (lambda v: isinstance(v, str), "text"),
+    "folds": (lambda v: _whole(v) and v >= 2, "a whole number >= 2"),
+    "calibrated": (lambda v: isinstance(v, bool), "true or false"),
+}
+
+
 def restore_decision(record: dict) -> RestoredDecision:
     """Mapping, policy, point and settings of a checked record (see :func:`check_record`).
 
@@ -989,7 +1004,17 @@ def restore_decision(record: dict) -> RestoredDecision:
     except InputError as exc:
         raise RecordError("policy.as_written", str(exc)) from None
     an = record.get("analysis") or {}
+    if not isinstance(an, dict):
+        raise RecordError("analysis", f"must be an object, got {_kind(an)}")
+    for key, (check, what) in _ANALYSIS_SETTINGS.items():
+        if key in an and not check(an[key]):
+            raise RecordError(f"analysis.{key}", f"must be {what}, got {_kind(an[key])}")
     entered = record.get("threshold_entered")
+    if entered is not None and not _num_or_inf(entered):
+        raise RecordError("threshold_entered", f"must be a number or null, got {_kind(entered)}")
+    sheet = record["data"].get("sheet")
+    if not _text_or_null(sheet):
+        raise RecordError("data.sheet", f"must be text or null, got {_kind(sheet)}")
     return RestoredDecision(
         mapping=mapping, policy=policy, threshold=_as_float(record["threshold"]),
         threshold_entered=None if entered is None else _as_float(entered),

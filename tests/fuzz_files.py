@@ -507,3 +507,221 @@ def check_outcome(f: FuzzFile, dataset=None, error: Exception | None = None) -> 
         np.testing.assert_array_equal(dataset.y_score, f.scores, err_msg=where)
         np.testing.assert_array_equal(dataset.y_true.astype(bool), f.labels, err_msg=where)
     return "loaded"
+
+
+# =========================================================================== policy, memo fields, records
+
+
+def _odd_value(rng: random.Random):
+    """A TOML value of any type, often at an edge."""
+    import datetime as dt
+
+    return rng.choice((
+        0, 1, -1, 0.5, -0.0, 1e308, -1e308, 5e-324, float("inf"), float("-inf"), float("nan"),
+        10**30, -(10**30), 2**63 - 1, 10**400, rng.random(), rng.uniform(-2, 2), rng.randint(-5, 500),
+        "", " ", "day", "max_youden", "recall", "site", "x" * 300, "<b>bold</b>", "\u202eright",
+        "line\nbreak", True, False, [], ["site"], ["site", "site"], [1, 2], [""], {"a": 1}, {},
+        dt.date(2025, 7, 1), dt.datetime(2025, 7, 1, 12, 0), dt.time(8, 30),
+    ))
+
+
+def _valid_policy(rng: random.Random) -> dict:
+    """A policy dict that should load (within every rule of the policy file)."""
+    from core.policy import FAIRNESS_METRICS, OBJECTIVES, PERIODS
+
+    kind = rng.choice(OBJECTIVES)
+    d: dict = {"objective": {"kind": kind}}
+    if kind == "max_fbeta" and rng.random() < 0.7:
+        d["objective"]["beta"] = rng.choice((0.5, 1, 2.0, 3))
+    if kind == "max_net_benefit":
+        d["objective"]["threshold_probability"] = rng.uniform(0.01, 0.99)
+    if kind == "min_cost" or rng.random() < 0.4:
+        fp = rng.choice((1, 1.0, 2.5, 0.1))
+        d["costs"] = {"false_positive": fp}
+        if rng.random() < 0.2:
+            d["costs"]["false_negative_column"] = "invoice_amount"
+        else:
+            d["costs"]["false_negative"] = fp + rng.choice((1, 10, 99.5))
+        if rng.random() < 0.3:
+            d["costs"]["unit"] = rng.choice(("harm points", "EUR", "Ω units", "<i>pts</i>"))
+    if rng.random() < 0.5:
+        dep: dict = {}
+        if rng.random() < 0.6:
+            dep["prevalence"] = rng.uniform(0.01, 0.05)
+        if rng.random() < 0.3:
+            lo = 0.005
+            hi = 0.08
+            dep.update(prevalence_low=lo, prevalence_high=hi, prevalence_source="audit 2025")
+        if rng.random() < 0.5:
+            dep["cases_per_period"] = rng.choice((100, 1200.5, 5))
+            dep["period"] = rng.choice(tuple(PERIODS))
+        d["deployment"] = dep
+    rules: dict = {}
+    if kind == "max_recall" or rng.random() < 0.3:
+        rules["max_flag_rate"] = rng.uniform(0.05, 0.5)
+    if kind == "max_precision" or rng.random() < 0.3:
+        rules["min_recall"] = rng.uniform(0.1, 0.9)
+    if rng.random() < 0.2:
+        rules["confidence"] = 0.95
+    if rules:
+        d["rules"] = rules
+    if rng.random() < 0.2:
+        d["fairness"] = {"metric": rng.choice(FAIRNESS_METRICS), "groups": ["site"],
+                         "tolerance": 0.05}
+    return d
+
+
+def _mutate_dict(rng: random.Random, d: dict, known: dict) -> dict:
+    """Change, drop or add keys (and sections) of a nested dict."""
+    import copy
+
+    d = copy.deepcopy(d)
+    for _ in range(rng.randint(1, 4)):
+        what = rng.choice(("set", "set", "drop", "add", "section"))
+        section = rng.choice(sorted(known))
+        if what == "section":
+            d[rng.choice((section, "extra", "Objective"))] = _odd_value(rng)
+            continue
+        table = d.setdefault(section, {}) if isinstance(d.get(section, {}), dict) else None
+        if table is None:
+            continue
+        keys = sorted(known[section]) if known[section] else ["x"]
+        if what == "set":
+            table[rng.choice(keys)] = _odd_value(rng)
+        elif what == "drop" and table:
+            table.pop(rng.choice(sorted(table)))
+        else:
+            table[rng.choice(("unknown_key", keys[0].upper(), keys[0] + "s"))] = _odd_value(rng)
+    return d
+
+
+def _toml_text(rng: random.Random, d: dict) -> str:
+    import tomli_w
+
+    try:
+        return tomli_w.dumps(d)
+    except (TypeError, ValueError):
+        return "# not writable as TOML\n" + repr(d)
+
+
+def _mutate_text(rng: random.Random, text: str) -> bytes:
+    data = bytearray(text.encode("utf-8"))
+    how = rng.choice(("cut", "flip", "insert", "bom", "latin", "none"))
+    if how == "cut" and data:
+        data = data[: rng.randrange(len(data))]
+    elif how == "flip" and data:
+        for _ in range(rng.randint(1, 4)):
+            data[rng.randrange(len(data))] = rng.getrandbits(8)
+    elif how == "insert":
+        pos = rng.randrange(len(data) + 1)
+        data[pos:pos] = rng.choice((b"[", b"]", b"=", b'"', b"\n", b"\x00", b"'''", b"{", b"#"))
+    elif how == "bom":
+        data = bytearray(b"\xef\xbb\xbf") + data
+    elif how == "latin":
+        data += "\nnote = \"Zürich\"".encode("latin-1")
+    return bytes(data)
+
+
+def policy_file(seed: int) -> tuple[bytes, str]:
+    """(file bytes, how it was made): a valid policy, a mutated one, or damaged text."""
+    from core.policy import _KEYS
+
+    rng = random.Random(f"policy:{seed}")
+    d = _valid_policy(rng)
+    how = rng.choice(("valid", "mutated", "mutated", "damaged", "random"))
+    if how == "mutated":
+        d = _mutate_dict(rng, d, _KEYS)
+    if how == "random":
+        return bytes(rng.getrandbits(8) for _ in range(rng.choice((0, 8, 200)))), how
+    text = _toml_text(rng, d)
+    if how == "damaged":
+        return _mutate_text(rng, text), how
+    return text.encode("utf-8"), how
+
+
+def memo_fields_file(seed: int) -> tuple[bytes, str]:
+    """(file bytes, how it was made) for the memo-fields TOML."""
+    from core.memo_fields import DECISIONS, FIELDS, INDEPENDENCE, NESTED
+
+    rng = random.Random(f"memo:{seed}")
+    d: dict = {}
+    for key in rng.sample(FIELDS, rng.randint(0, len(FIELDS))):
+        d[key] = rng.choice(("", "Plain text", "<script>alert(1)</script>", "**bold** _it_ `c`",
+                             "x" * 2000, "שלום עולם", "( ) \\ [ ]", "=1+2", "<para>p</para>"))
+    if "validation_independence" in d:
+        d["validation_independence"] = rng.choice(INDEPENDENCE + ("",))
+    if rng.random() < 0.6:
+        d["sign_off"] = {"name": "A. Reviewer", "decision": rng.choice(DECISIONS),
+                         "date": rng.choice(("2025-07-01", "")), "role": "lead"}
+    if rng.random() < 0.4:
+        d["monitoring"] = {k: "quarterly" for k in NESTED["monitoring"]}
+    how = rng.choice(("valid", "mutated", "mutated", "damaged", "random"))
+    if how == "mutated":
+        d = _mutate_dict(rng, d, {s: {k: None for k in ks} for s, ks in NESTED.items()})
+        for _ in range(rng.randint(0, 3)):  # top-level fields
+            key = rng.choice(FIELDS + ("unknown_field", "Title"))
+            if rng.random() < 0.3:
+                d.pop(key, None)
+            else:
+                d[key] = _odd_value(rng)
+    if how == "random":
+        return bytes(rng.getrandbits(8) for _ in range(rng.choice((0, 8, 200)))), how
+    text = _toml_text(rng, d)
+    if how == "damaged":
+        return _mutate_text(rng, text), how
+    return text.encode("utf-8"), how
+
+
+def _paths(obj, prefix=()):
+    """Every (path, value) of a JSON document, depth first."""
+    yield prefix, obj
+    if isinstance(obj, dict):
+        for k, v in obj.items():
+            yield from _paths(v, prefix + (k,))
+    elif isinstance(obj, list):
+        for i, v in enumerate(obj[:5]):
+            yield from _paths(v, prefix + (i,))
+
+
+def _json_value(rng: random.Random):
+    return rng.choice((None, 0, 1, -1, 0.5, 1e308, "inf", "-inf", "nan", "", "x", True, False, [],
+                       {}, [1, "a"], {"k": None}, "0" * 64, "g" * 64, 10**20, -0.0))
+
+
+def record_file(seed: int, record: dict) -> tuple[bytes, str, set]:
+    """(file bytes, how, sections changed) from a real decision record.
+
+    ``how``: "valid", "edited" (values changed or removed, the integrity block
+    left as it was: must be refused naming a changed section), "resealed"
+    (edited, then the integrity block recomputed: the schema checks must
+    catch a bad value), "damaged" (bytes), "random". ``sections``: the
+    top-level keys whose content differs from the original's.
+    """
+    import copy
+    import json
+
+    from core.record import digest, dumps_record, seal
+
+    rng = random.Random(f"record:{seed}")
+    how = rng.choice(("valid", "edited", "edited", "resealed", "resealed", "damaged", "random"))
+    if how == "random":
+        return bytes(rng.getrandbits(8) for _ in range(rng.choice((0, 8, 300)))), how, set()
+    rec = copy.deepcopy(record)
+    if how in ("edited", "resealed"):
+        for _ in range(rng.randint(1, 3)):
+            paths = [p for p, _ in _paths(rec) if p and p[0] != "integrity"]
+            path = rng.choice(paths)
+            parent = rec
+            for k in path[:-1]:
+                parent = parent[k]
+            if rng.random() < 0.15 and isinstance(parent, dict):
+                del parent[path[-1]]
+            else:
+                parent[path[-1]] = _json_value(rng)
+        if how == "resealed":
+            rec = seal(rec)
+    sections = {k for k in record if k != "integrity" and (k not in rec or digest(rec[k]) != digest(record[k]))}
+    text = dumps_record(rec) if how != "damaged" else json.dumps(rec, indent=2)
+    if how == "damaged":
+        return _mutate_text(rng, text), how, sections
+    return text.encode("utf-8"), how, sections

@@ -204,3 +204,180 @@ def test_fuzz_intake_app_uploads(capsys):
            f"({tally['loaded']} loaded, {tally['message']} refused with the intake's message, "
            f"{tally['read']} read and waiting for a mapping; no exception, no traceback)",
            tried=len(files), held=len(files), **dict(tally))
+
+
+# =========================================================================== policy, memo fields, records
+
+N_POLICY = 1_000
+N_MEMO = 1_000
+N_RECORD = 600
+
+_DOCS = settings(derandomize=True, deadline=None, database=None,
+                 suppress_health_check=list(HealthCheck), print_blob=True)
+
+
+@pytest.fixture(scope="module")
+def small_dataset():
+    import numpy as np
+
+    from core.dataset import Dataset
+
+    rng = np.random.default_rng(12)
+    n = 600
+    y = rng.random(n) < 0.08
+    s = np.round(rng.normal(y * 1.2, 1.0), 3)
+    site = np.where(rng.random(n) < 0.5, "north", "south")
+    return Dataset.from_arrays(y, s, groups={"site": site})
+
+
+def _refusal_ok(error, where) -> None:
+    assert isinstance(error, InputError), f"{where}: {type(error).__name__}: {error}"
+    msg = str(error)
+    assert msg.strip() and "\n" not in msg.strip(), f"{where}: {msg!r}"
+
+
+def test_fuzz_policy_files(small_dataset, tmp_path, capsys):
+    from core.choose import choose
+    from core.policy import dumps_policy, loads_policy, resolve_policy
+
+    tally: Counter = Counter()
+
+    @settings(_DOCS, max_examples=N_POLICY)
+    @given(seed=_SEED)
+    def case(seed):
+        from tests.fuzz_files import policy_file
+
+        data, how = policy_file(seed)
+        where = f"policy seed {seed} ({how})"
+        try:
+            policy = loads_policy(data.decode("utf-8"), source="p.toml") if _utf8(data) else None
+        except Exception as exc:
+            _refusal_ok(exc, where)
+            assert how != "valid", f"{where}: a valid policy was refused: {exc}"
+            tally["refused"] += 1
+            return
+        if policy is None:  # not UTF-8: the file loader's own message
+            from core.policy import load_policy
+
+            path = tmp_path / "policy.toml"
+            path.write_bytes(data)
+            with pytest.raises(InputError):
+                load_policy(path)
+            tally["refused"] += 1
+            return
+        assert loads_policy(dumps_policy(policy)) == policy, where
+        try:  # a policy that loads is usable: resolved and chosen on data, or refused by name
+            resolve_policy(policy, small_dataset)
+            choose(small_dataset, policy)
+            tally["loaded"] += 1
+        except Exception as exc:
+            _refusal_ok(exc, where + " (used on data)")
+            tally["loaded, refused on these data"] += 1
+
+    case()
+    tried = sum(tally.values())
+    assert tried >= N_POLICY and tally["loaded"] > 0 and tally["refused"] > 0
+    report(capsys, "fuzz_policy",
+           f"fuzz policy files (TOML): {tried:,} files tried, {tried:,} held ({tally['loaded']:,} "
+           f"loaded and used to choose a point, {tally['loaded, refused on these data']:,} loaded "
+           f"and refused on the data by name, {tally['refused']:,} refused listing the problems)",
+           tried=tried, held=tried, **dict(tally))
+
+
+def _utf8(data: bytes) -> bool:
+    try:
+        data.decode("utf-8")
+        return True
+    except UnicodeDecodeError:
+        return False
+
+
+def test_fuzz_memo_field_files(tmp_path, capsys):
+    from core.memo_fields import dumps_memo_fields, load_memo_fields
+
+    tally: Counter = Counter()
+
+    @settings(_DOCS, max_examples=N_MEMO)
+    @given(seed=_SEED)
+    def case(seed):
+        from tests.fuzz_files import memo_fields_file
+
+        data, how = memo_fields_file(seed)
+        where = f"memo fields seed {seed} ({how})"
+        path = tmp_path / "memo.toml"
+        path.write_bytes(data)
+        try:
+            fields = load_memo_fields(path)
+        except Exception as exc:
+            _refusal_ok(exc, where)
+            assert how != "valid", f"{where}: valid memo fields were refused: {exc}"
+            tally["refused"] += 1
+            return
+        path.write_text(dumps_memo_fields(fields), encoding="utf-8")
+        assert load_memo_fields(path) == fields, where
+        tally["loaded"] += 1
+
+    case()
+    tried = sum(tally.values())
+    assert tried >= N_MEMO and tally["loaded"] > 0 and tally["refused"] > 0
+    report(capsys, "fuzz_memo_fields",
+           f"fuzz memo-field files (TOML): {tried:,} files tried, {tried:,} held "
+           f"({tally['loaded']:,} loaded and round-tripped, {tally['refused']:,} refused listing "
+           f"the problems)", tried=tried, held=tried, **dict(tally))
+
+
+@pytest.fixture(scope="module")
+def real_record(small_dataset):
+    from core.decision import analyse
+    from core.policy import Policy
+    from core.record import build_record
+
+    policy = Policy.from_dict({"objective": {"kind": "max_fbeta", "beta": 2.0},
+                               "rules": {"min_recall": 0.5}})
+    analysis = analyse(small_dataset, policy, n_replicates=50, seed=1)
+    return build_record(analysis, memo_fields={"title": "Fuzz base", "author": "Test"})
+
+
+def test_fuzz_decision_records(real_record, small_dataset, capsys):
+    from core.recheck import recheck
+    from core.record import RecordError, loads_record, restore_decision
+
+    tally: Counter = Counter()
+    rechecks = {"n": 0}
+
+    @settings(_DOCS, max_examples=N_RECORD)
+    @given(seed=_SEED)
+    def case(seed):
+        from tests.fuzz_files import record_file
+
+        data, how, sections = record_file(seed, real_record)
+        where = f"record seed {seed} ({how}, changed {sorted(sections)})"
+        try:
+            rec = loads_record(data, source="r.json")
+        except Exception as exc:
+            _refusal_ok(exc, where)
+            assert how != "valid", f"{where}: {exc}"
+            if how == "edited" and sections:  # the message names a section that was changed
+                assert isinstance(exc, RecordError) and exc.field, where
+                assert exc.field.split(".")[0] in sections, f"{where}: {exc}"
+            tally["refused"] += 1
+            return
+        assert how not in ("edited", "damaged") or not sections, f"{where}: an edit got through"
+        try:  # a record that loads can be restored; the unedited ones are rechecked on data
+            restore_decision(rec)
+            if how == "valid" and rechecks["n"] < 5:
+                rechecks["n"] += 1
+                recheck(rec, small_dataset, n_replicates=50)
+            tally["loaded"] += 1
+        except Exception as exc:
+            _refusal_ok(exc, where + " (restored and rechecked)")
+            tally["loaded, refused on use"] += 1
+
+    case()
+    tried = sum(tally.values())
+    assert tried >= N_RECORD and tally["loaded"] > 0 and tally["refused"] > 0
+    report(capsys, "fuzz_records",
+           f"fuzz decision records (JSON): {tried:,} files tried, {tried:,} held "
+           f"({tally['loaded']:,} loaded and restored, {tally['loaded, refused on use']:,} loaded "
+           f"and refused by name when restored, {tally['refused']:,} refused naming the field or the "
+           f"changed section)", tried=tried, held=tried, **dict(tally))
