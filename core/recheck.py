@@ -577,7 +577,8 @@ def _per_period(approval_cap, approved_cap, chosen_cap, basis: str) -> dict | No
     note = ("Flags per period from the score-time column: every period from the first to the "
             "last counts (periods without cases as 0), rescaled to the policy's deployment "
             "prevalence and volume as at approval; the quantile is empirical (no sampling "
-            "bound).")
+            "bound); the share over capacity is against the capacity of the policy each row is "
+            "judged with (the approval row: the record's).")
     if approval_cap and approved_cap and approval_cap.get("period") != approved_cap.get("period"):
         note += (f" The approval counted per {approval_cap.get('period')}, the policy used now per "
                  f"{approved_cap.get('period')}: those two are not differenced.")
