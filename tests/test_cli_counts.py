@@ -501,3 +501,27 @@ def test_sql_dialects_files_and_bad_input(tmp_path, capsys):
         assert capsys.readouterr().err.startswith(start), argv
     assert main(["sql", "t", "--score", "s", "--label", "y"]) == 2  # --positive is required
     capsys.readouterr()
+
+
+def test_cli_statement_is_the_one_the_spark_test_runs(tmp_path, capsys):
+    # test_reduce.py runs reduction_sql(("parquet", path), dialect="spark") in Spark local mode;
+    # the command prints that very statement.
+    from core.sql import reduction_sql
+
+    path = str(tmp_path / "r.parquet")
+    stmt = _sql([path, "--file", "parquet", "--dialect", "spark", "--score", "score", "--label",
+                 "outcome", "--positive", "1", "--decimals", "2", "--group", "site"], capsys)
+    assert stmt == reduction_sql(("parquet", path), dialect="spark", score="score",
+                                 label="outcome", positive=1, decimals=2, groups=("site",))
+
+
+def test_readme_sql_example_runs(capsys):
+    import shlex
+    from pathlib import Path
+
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    block = text.split("## Large files and warehouses", 1)[1]
+    lines = block.split("    fulcrum sql ", 1)[1].split("\n\n", 1)[0]
+    argv = shlex.split(lines.replace("\\\n", " ").split(">", 1)[0])
+    stmt = _sql(argv, capsys)
+    assert stmt.startswith("SELECT `risk_score`, `site`") and "GROUP BY" in stmt
