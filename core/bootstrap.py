@@ -138,6 +138,153 @@ def _check_design(design: str) -> str:
 
 # --------------------------------------------------------------------------- units
 
+#: Whole-count cells up to this mass get an inversion table; larger ones use numpy's Poisson.
+TABLE_MAX_MASS = 1 << 13
+#: At most this many table entries per class (cells of the most frequent masses first).
+TABLE_BUDGET = 1 << 21
+
+
+class _PoissonTable:
+    """Independent Poisson(lam_i) counts for whole-number means, by inversion.
+
+    For each distinct mean v up to :data:`TABLE_MAX_MASS` the table holds
+    the cumulative distribution F(x) = P(X <= x) for x = 0..K (K = v +
+    ceil(10 sqrt(v)) + 20), computed once as the cumulative sum of
+    exp(x log v - v - lgamma(x + 1)), and a guide: for bucket j of 2 (K + 2)
+    equal slices of [0, 1), a lower bound of the first x with F(x) > j / M.
+    A draw is x = the first x with F(x) > u for one uniform u: start at the
+    guide, one step up, then bisection up to the bucket's end (exact: only
+    comparisons with F are used). u >= F(K) (probability below 1e-20) draws
+    from the tail X | X > K by sequential inversion, so nothing is truncated.
+    Means above the cap, or beyond the table budget, use ``Generator.poisson``.
+    About 10 vectorised operations per cell instead of a Poisson rejection
+    sampler (4-8x faster per cell).
+    """
+
+    PAD_SD = 10.0
+    PAD = 20
+
+    def __init__(self, lam, *, pad_sd: float | None = None, pad: int | None = None):
+        lam = np.asarray(lam, dtype=np.int64)
+        self.k = lam.shape[0]
+        pad_sd = self.PAD_SD if pad_sd is None else float(pad_sd)
+        pad = self.PAD if pad is None else int(pad)
+        vals, inv, counts = np.unique(lam, return_inverse=True, return_counts=True)
+        K = vals + np.ceil(pad_sd * np.sqrt(vals)).astype(np.int64) + pad
+        size = K + 2  # x = 0..K and a sentinel F = 2 above every uniform
+        keep = vals <= TABLE_MAX_MASS
+        if size[keep].sum() > TABLE_BUDGET:  # the masses serving most cells first
+            order = np.flatnonzero(keep)[np.argsort(-counts[keep] / size[keep], kind="stable")]
+            within = np.cumsum(size[order]) <= TABLE_BUDGET
+            keep = np.zeros(vals.shape[0], dtype=bool)
+            keep[order[within]] = True
+        kv = np.flatnonzero(keep)
+        sizes = size[kv]
+        foff = (np.cumsum(sizes) - sizes).astype(np.intp)
+        M = 2 * sizes  # guide buckets per table
+        goff = (np.cumsum(M + 1) - (M + 1)).astype(np.intp)
+        # every table at once: x, its table's mean, the log pmf; the cumulative sums per
+        # table in extended precision (the tables' running total is subtracted exactly)
+        seg = np.repeat(np.arange(kv.shape[0]), sizes)
+        x = np.arange(seg.shape[0], dtype=np.intp) - foff[seg]
+        ld = np.longdouble
+        v = vals[kv].astype(ld)
+        # log P(X = x) = -v + sum_{k<=x} log(v / k): small terms summed in extended precision
+        step = np.log(v)[seg] - np.log(np.maximum(x, 1).astype(ld))
+        step[foff] = 0.0
+        logp = _segment_cumsum(step, foff, seg) - v[seg]
+        pmf = np.exp(logp)
+        top = foff + sizes - 1  # the sentinel's position
+        pmf[top] = 0.0
+        F = _segment_cumsum(pmf, foff, seg).astype(np.float64)
+        F[top] = 2.0
+        # bucket j of a table covers [j/M, (j+1)/M): its answer is at or after the first x
+        # with F(x) > j/M; counted conservatively (F(x) M (1 + 1e-12) <= j) it never overshoots
+        Ms = M[seg]
+        b = np.ceil(F * Ms * (1.0 + 1e-12)).astype(np.intp)
+        ok = b <= Ms
+        cnt = np.cumsum(np.bincount((goff[seg] + b)[ok], minlength=int((M + 1).sum())))
+        segg = np.repeat(np.arange(kv.shape[0]), M + 1)
+        before = np.concatenate([[0], cnt[:-1]])[goff]
+        G = foff[segg] + np.minimum(cnt - before[segg], (sizes - 2)[segg])
+        self.F, self.G = F, G
+        tab = keep[inv]
+        self.tab_idx = np.flatnonzero(tab)
+        self.other_idx = np.flatnonzero(~tab)
+        self.other_lam = lam[~tab].astype(np.float64)
+        seg = np.searchsorted(kv, inv[tab])  # each tabled cell's table
+        self.cell_M = M[seg].astype(np.float64)
+        self.cell_goff = goff[seg]
+        self.cell_foff = foff[seg]
+        self.cell_top = top[seg]
+        self.cell_lam = lam[tab].astype(np.float64)
+        self.all_tab = self.other_idx.size == 0
+
+    def draw(self, g: np.random.Generator) -> np.ndarray:
+        """One Poisson count per cell (int64)."""
+        u = g.random(self.tab_idx.shape[0])
+        F, G = self.F, self.G
+        j = (u * self.cell_M).astype(np.intp)
+        j += self.cell_goff
+        fi = G[j]
+        act = np.flatnonzero(F[fi] <= u)  # the answer is past the guide
+        moved = act
+        if act.size:
+            fi[act] += 1
+            sub = F[fi[act]] <= u[act]
+            act, j = act[sub], j[act[sub]]
+        if act.size:  # bisection between F[lo] <= u and the bucket's end (or the sentinel)
+            ua = u[act]
+            lo = fi[act]
+            hi = np.minimum(G[j + 1] + 1, self.cell_top[act])
+            past = F[hi] <= ua
+            hi[past] = self.cell_top[act][past]
+            while True:
+                wide = hi - lo > 1
+                if not wide.any():
+                    break
+                mid = (lo + hi) >> 1
+                le = F[mid] <= ua
+                lo = np.where(le, mid, lo)
+                hi = np.where(le, hi, mid)
+            fi[act] = hi
+        x = fi - self.cell_foff
+        if moved.size:  # only a cell that moved past its guide can reach the sentinel
+            tail = moved[fi[moved] == self.cell_top[moved]]
+            for i in tail.tolist():  # X | X > K, K = the last tabled value
+                x[i] = _poisson_tail(g, self.cell_lam[i], int(x[i]) - 1)
+        if self.all_tab:
+            return x
+        out = np.empty(self.k, dtype=np.int64)
+        out[self.tab_idx] = x
+        out[self.other_idx] = g.poisson(self.other_lam)
+        return out
+
+
+def _segment_cumsum(a, starts, seg):
+    """Cumulative sums of ``a`` restarting at each of ``starts`` (``seg``: each entry's
+    segment), in ``a``'s precision."""
+    run = np.cumsum(a)
+    before = np.concatenate([np.zeros(1, dtype=run.dtype), run[:-1]])[starts]
+    return run - before[seg]
+
+
+def _poisson_tail(g: np.random.Generator, lam: float, K: int) -> int:
+    """One draw of X | X > K for X ~ Poisson(lam), K >= lam: sequential inversion of
+    P(X = k) / P(X > K) from k = K + 1 (the terms fall at least geometrically)."""
+    from scipy.special import gammaln, pdtrc
+
+    sf = float(pdtrc(K, lam))
+    k = K + 1
+    p = float(np.exp(k * np.log(lam) - lam - gammaln(k + 1.0)))
+    u = g.random() * sf
+    while u >= p and p > 0.0:
+        u -= p
+        k += 1
+        p *= lam / k
+    return k
+
+
 class _Units:
     """One class's resampling units (cells, or rows) and how they map to cells.
 
@@ -178,8 +325,11 @@ class _Units:
             np.arange(self.small_idx.size,
                       dtype=np.int32 if self.small_idx.size < 2**31 else np.int64),
             mass[small].astype(np.int64))
+        # large cells in order of mass (then position): the table draws then walk its
+        # segments in order, which keeps them in cache (any fixed order is equally exact)
         self.large_idx = np.flatnonzero(large)
-        self.large_mass = mass[large]
+        self.large_idx = self.large_idx[np.argsort(mass[self.large_idx], kind="stable")]
+        self.large_mass = mass[self.large_idx]
         self.large_total = float(self.large_mass.sum())
         if self.integer:
             self.large_cum = np.cumsum(self.large_mass.astype(np.int64))
@@ -188,6 +338,9 @@ class _Units:
         self.large_share = (self.large_mass / self.large_total if self.large_idx.size
                             else self.large_mass)
         self.small_share = (self.small_total / total) if total > 0 else 0.0
+        # whole-count large cells: Poisson(mass) by table inversion (see _PoissonTable)
+        self.table = (_PoissonTable(self.large_mass.astype(np.int64))
+                      if self.integer and self.large_idx.size else None)
 
     # ------------------------------------------------------------------ draws
     @property
@@ -223,7 +376,10 @@ class _Units:
         return counts
 
     def _draw_large(self, g, m):
-        x = g.poisson(m * self.large_share)
+        if self.table is not None:
+            x = self.table.draw(g)  # Poisson(mass): any Poisson means work, see the docstring
+        else:
+            x = g.poisson(m * self.large_share)
         s = int(x.sum())
         if s < m:  # add m - s rows drawn in proportion to the cells
             if self.integer:

@@ -104,6 +104,10 @@ class ReplicateChooser:
         if degenerate.any():
             P = np.where(degenerate[:, None], 1.0, P)
             N = np.where(degenerate[:, None], 1.0, N)
+        # only the candidates that can meet the monotone rules in some row are evaluated
+        sel = self._window(tp, fp, P[:, 0], N[:, 0], degenerate)
+        if sel is not None:
+            cc = cc[sel]
         t = tp[:, cc]
         f = fp[:, cc]
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -123,8 +127,10 @@ class ReplicateChooser:
             n0 = _iv.effective_size_from_sums(N, sq[1][:, -1][:, None])
         else:
             n1, n0 = P, N
-        v = self._objective(tpr, fpr, tpp, fpp, pi, P, cost_cum)  # NaN: undefined
-        self._rules_met(t, f, P, N, tpr, fpr, tpp, fpp, pi, n1, n0, out=ok)
+        v = self._objective(tpr, fpr, tpp, fpp, pi, P, cost_cum, cc)  # NaN: undefined
+        self._rules_met(t, f, P, N, tpr, fpr, tpp, fpp, pi, n1, n0, out=ok,
+                        cap_ok=None if self.cap_ok is None else
+                        (self.cap_ok if sel is None else self.cap_ok[sel]))
         # best feasible value (an undefined objective ranks lowest, as -inf in choose())
         best = np.fmax.reduce(np.where(ok, v, -np.inf), axis=1, keepdims=True)
         with np.errstate(invalid="ignore"):
@@ -138,12 +144,58 @@ class ReplicateChooser:
         out = np.where(any_ok & ~degenerate, cc[first], -1)
         return out
 
-    def _objective(self, tpr, fpr, tpp, fpp, pi, P, cost_cum):
+    def _window(self, tp, fp, P, N, degenerate):
+        """Candidate ranks worth evaluating (None: all), always with "flag none" first.
+
+        A recall floor holds only on a suffix of the candidates and a
+        specificity floor only on a prefix (recall never falls, specificity
+        never rises along them; a confidence bound only narrows either); a
+        capacity limit held at its full-data value is a fixed mask. Each row's
+        edge is found by a binary search on its cumulative counts with a margin
+        of 1e-9 (wider than any rounding of the rule's own expression), and
+        the union of the rows' windows is kept: every candidate left out fails
+        a rule in every row, so the choice is the same.
+        """
+        rules = self.rp.rules
+        cc = self.cand_cols
+        K = cc.shape[0]
+        live = np.flatnonzero(~degenerate)
+        if live.size == 0:
+            return None
+        lo, hi = 0, K
+        lim = rules.get("min_recall")
+        if lim is not None:
+            floor = lim - TIE_RTOL * abs(lim)
+            if floor > 0:
+                need = floor * (1.0 - 1e-9) * P[live]
+                first = min(int(np.searchsorted(tp[i], x, side="left"))
+                            for i, x in zip(live.tolist(), need.tolist()))
+                lo = max(lo, int(np.searchsorted(cc, first, side="left")))
+        lim = rules.get("min_specificity")
+        if lim is not None:
+            ceil = 1.0 - (lim - TIE_RTOL * abs(lim))
+            if ceil < 1.0:
+                allow = (ceil + 1e-9) * N[live]
+                end = max(int(np.searchsorted(fp[i], x, side="right"))
+                          for i, x in zip(live.tolist(), allow.tolist()))
+                hi = min(hi, int(np.searchsorted(cc, end, side="left")))
+        if self.cap_ok is not None and "max_flagged_per_period" in rules:
+            where = np.flatnonzero(self.cap_ok)
+            if where.size == 0:
+                lo, hi = K, K
+            else:
+                lo, hi = max(lo, int(where[0])), min(hi, int(where[-1]) + 1)
+        if lo <= 1 and hi >= K:
+            return None
+        lo = max(lo, 1)
+        return np.concatenate([[0], np.arange(lo, max(hi, lo))])
+
+    def _objective(self, tpr, fpr, tpp, fpp, pi, P, cost_cum, cols=None):
         rp = self.rp
         kind = rp.objective
         with np.errstate(invalid="ignore", divide="ignore"):
             if kind == "min_cost":
-                v = -self.cost(tpr, fpr, pi, P, cost_cum)
+                v = -self.cost(tpr, fpr, pi, P, cost_cum, cols)
             elif kind == "max_fbeta":
                 b2 = rp.beta ** 2
                 v = (1 + b2) * tpp / ((1 + b2) * tpp + b2 * (pi - tpp) + fpp)
@@ -173,7 +225,7 @@ class ReplicateChooser:
         return (pi * miss + rp.false_positive * (1.0 - pi) * fpr
                 + rp.true_positive * pi * tpr + rp.true_negative * (1.0 - pi) * (1.0 - fpr))
 
-    def _rules_met(self, tp, fp, P, N, tpr, fpr, tpp, fpp, pi, n1, n0, out):
+    def _rules_met(self, tp, fp, P, N, tpr, fpr, tpp, fpp, pi, n1, n0, out, cap_ok=None):
         """``out &=`` every active rule's verdict (the formulas of ``choose()``)."""
         rp = self.rp
         conf = rp.confidence
@@ -204,8 +256,8 @@ class ReplicateChooser:
                         bound = _iv.flag_rate_interval(tp, fn, fp, tn, pi, conf, sided="upper",
                                                        n_events=n1, n_nonevents=n0)[1]
                 elif name == "max_flagged_per_period":
-                    if self.cap_ok is not None:
-                        met_all &= self.cap_ok[None, :]
+                    if cap_ok is not None:
+                        met_all &= cap_ok[None, :]
                         continue
                     value = (tpp + fpp) * rp.cases_per_period
                     if conf is not None:
