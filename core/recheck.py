@@ -63,6 +63,7 @@ from core.record import RecordError, canonical_json, digest, seal  # noqa: F401 
 __all__ = [
     "COMPARED_METRICS",
     "SCHEMA",
+    "VERDICT_BASIS",
     "GroupRecheck",
     "MetricComparison",
     "RecheckResult",
@@ -71,11 +72,10 @@ __all__ = [
     "exit_code",
     "load_recheck",
     "loads_recheck",
-    "VERDICT_BASIS",
     "policy_changes",
-    "rechoose",
     "recheck",
     "recheck_without_timestamps",
+    "rechoose",
     "record_policy",
     "write_recheck",
 ]

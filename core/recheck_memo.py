@@ -21,9 +21,9 @@ from core.memo_content import Block, fmt_count, fmt_num, fmt_pct
 
 __all__ = [
     "per_period_header",
+    "per_period_rows",
     "policy_now_header",
     "policy_now_rows",
-    "per_period_rows",
     "policy_value",
     "recheck_blocks",
     "recheck_markdown",
