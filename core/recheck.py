@@ -695,6 +695,18 @@ def _where(key) -> str:
     return f"{key[0]} {key[1]}"
 
 
+#: At most this many failing groups (the worst) are compared pairwise for overlaps.
+_MAX_OVERLAP = 12
+
+
+def _event_weights(ds) -> np.ndarray:
+    """The (weighted) events of every row or count-table line."""
+    if ds.kind == "counts":
+        return np.asarray(ds.events, dtype=np.float64)
+    y = np.asarray(ds.y_true, dtype=np.float64)
+    return y if ds.sample_weight is None else y * np.asarray(ds.sample_weight, dtype=np.float64)
+
+
 def _group_overlaps(mature, t, rules, kw, groups) -> dict | None:
     """Failing groups of different columns that share cases: which finding leads.
 
@@ -706,12 +718,17 @@ def _group_overlaps(mature, t, rules, kw, groups) -> dict | None:
     larger shortfall below the limit); the others are reported with the share
     of their events that are the lead's and their verdicts without the lead's
     cases. None when fewer than two columns have a failing group or no
-    removal clears any failure.
+    removal clears any failure. With many failing groups the worst
+    ``_MAX_OVERLAP`` (largest shortfall) are compared (pairs grow as its square).
     """
     failing = [g for g in groups if any(v.verdict == "fails" for v in g.verdicts)]
     if len({g.column for g in failing}) < 2:
         return None
+    # the worst failures first; at most _MAX_OVERLAP of them are compared pairwise
+    failing = sorted(failing, key=lambda g: -max(_shortfall(v) for v in g.verdicts
+                                                 if v.verdict == "fails"))[:_MAX_OVERLAP]
     masks = {g.key: np.asarray(mature.groups[g.column], dtype=object) == g.group for g in failing}
+    ev_w = _event_weights(mature)
     trials = {}
     for a in failing:
         for b in failing:
@@ -721,8 +738,8 @@ def _group_overlaps(mature, t, rules, kw, groups) -> dict | None:
             inside = masks[b.key]
             both = inside & masks[a.key]
             outside = inside & ~masks[a.key]
-            ev_b = _subset(mature, inside).curve().n_events
-            ev_ab = _subset(mature, both).curve().n_events if both.any() else 0.0
+            ev_b = float(ev_w[inside].sum())
+            ev_ab = float(ev_w[both].sum())
             if outside.any():
                 vs, _ = _judge(_subset(mature, outside), t, names, margins=None, overall=False, **kw)
             else:
