@@ -11,6 +11,7 @@ from streamlit.testing.v1 import AppTest
 from core import sweep
 
 ROOT = Path(__file__).resolve().parents[1]
+MEMO_RECORD = "fulcrum_memo_record"  # app/views/memo.py RECORD
 APP = str(ROOT / "app" / "main.py")
 
 
@@ -53,6 +54,13 @@ def test_large_local_file_is_counted_and_becomes_the_active_dataset(tmp_path):
     for page in ("views/tradeoffs.py", "views/decide.py", "views/evidence.py"):
         at.switch_page(page).run()
         assert not at.exception, page
+    # the Memo page's record says how the table was counted
+    at.switch_page("views/memo.py").run()
+    assert not at.exception
+    rec = at.session_state[MEMO_RECORD]
+    assert rec["data"]["kind"] == "counts" and rec["data"]["group_columns"] == ["site"]
+    assert rec["data"]["reduction"]["rows_read"] == len(df)
+    assert "Every distinct score was kept" in rec["data"]["reduction"]["statement"]
 
 
 def test_rounded_reduction_states_its_effect_and_bad_input_shows_the_message(tmp_path):

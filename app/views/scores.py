@@ -47,6 +47,17 @@ def _optional(label: str, columns: list[str], key: str, default=None, help=None)
     return None if value == NONE else value
 
 
+def _extra_scores_form(cols: list[str]) -> tuple[tuple, tuple]:
+    """Other score columns of the same rows (compared with the score on the Compare page)."""
+    with st.expander("Other score columns to compare (e.g. a retrained model on the same cases)"):
+        extra = st.multiselect("Other score columns to compare", cols, key="map_extra_scores",
+                               help="Each is checked like the score and compared with it on the "
+                                    "Compare page; the score above is the reference (current model).")
+        lower = st.multiselect("Of these, lower score = higher risk", cols, key="map_extra_lower",
+                               help="Flag when score ≤ threshold for these columns.")
+    return tuple(extra), tuple(lower)
+
+
 def _mapping_form(raw):
     """Every mapping field the intake offers; returns a core Mapping or None."""
     from core.dataset import Mapping
@@ -81,6 +92,7 @@ def _mapping_form(raw):
     if values["missing"].any():
         c3.caption(f"{int(values.loc[values['missing'], 'rows'].sum()):,} rows have no label: loading "
                    "will name them.")
+    extra, extra_lower = _extra_scores_form(cols)
     with st.expander("Optional columns: weights, groups, repeated cases, times, costs"):
         o1, o2 = st.columns(2)
         weight = _optional("Weight column", cols, "map_weight", guess.weight)
@@ -105,7 +117,8 @@ def _mapping_form(raw):
     return Mapping(score=score, label=label, positive_label=positive, weight=weight, weight_kind=weight_kind,
                    groups=tuple(groups), cluster=cluster, score_time=score_time, outcome_time=outcome_time,
                    outcome_horizon_days=horizon, case_cost=case_cost, higher_is_riskier=not lower,
-                   drop_missing_scores=drop_missing)
+                   drop_missing_scores=drop_missing, extra_scores=extra,
+                   extra_lower_is_riskier=extra_lower)
 
 
 def _upload_section() -> None:
@@ -163,7 +176,8 @@ def _local_section() -> None:
 
     st.caption("For files too large to upload: type the path of a Parquet or CSV file on this "
                "machine (the app runs on 127.0.0.1). DuckDB reads it where it is, within a memory "
-               "limit, and counts it into a count table; no row is copied or kept.")
+               "limit (spilling, if at all, into a private temporary folder it deletes), and counts it "
+               "into a count table; no row is copied or kept.")
     path = st.text_input("Path of the file on this machine", key="local_path",
                          placeholder="/data/validation_scores.parquet").strip()
     if not path:
@@ -236,6 +250,11 @@ def _summary() -> None:
     c[4].metric("Highest score", f"{hi:.4g}")
     c[5].metric("Distinct scores", fmt.count(ds.curve().n_points - 1))
     st.caption(f"Fingerprint (SHA-256 of the mapped data and mapping): `{ds.fingerprint}`")
+    if ds.extra_scores:
+        dirs = ds.extra_higher_is_riskier
+        st.caption(f"Reference score `{ds.mapping.score}`; also mapped for the Compare page: "
+                   + ", ".join(f"`{c}` ({'higher' if dirs[c] else 'lower'} is riskier)"
+                               for c in ds.extra_scores) + ".")
     if ds.dropped_rows:
         st.warning(f"{fmt.count(ds.dropped_rows)} rows with a missing score were dropped at your request; "
                    "the memo reports them.")
