@@ -77,9 +77,16 @@ def _add_compare(sub) -> None:
     add_compare(sub)
 
 
+def _add_sign(sub) -> None:
+    from core.cli_sign import add_sign, add_verify
+
+    add_sign(sub)
+    add_verify(sub)
+
+
 #: name -> function that adds the subcommand to the subparsers object.
 COMMANDS = {"app": _add_app, "pick": _add_pick, "recheck": _add_recheck, "sql": _add_sql,
-            "compare": _add_compare}
+            "compare": _add_compare, "sign": _add_sign}
 
 
 def build_parser() -> argparse.ArgumentParser:
