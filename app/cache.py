@@ -33,5 +33,13 @@ class BoundedCache:
                 self._data.popitem(last=False)
         return value
 
+    def get(self, key: Hashable, default: Any = None) -> Any:
+        """The cached value for ``key`` without computing it (``default`` when absent)."""
+        with self._lock:
+            if key in self._data:
+                self._data.move_to_end(key)
+                return self._data[key]
+        return default
+
     def __len__(self) -> int:
         return len(self._data)

@@ -20,6 +20,7 @@ from core.curve import Curve
 __all__ = [
     "PALETTE", "MAX_POINTS", "pr_figure", "roc_figure", "metrics_figure", "distribution_figure",
     "cost_figure", "cost_ratio_figure", "decision_curve_figure", "flags_per_period_figure",
+    "compare_roc_figure", "compare_pr_figure",
 ]
 
 #: Okabe & Ito colour-blind-safe palette.
@@ -321,3 +322,72 @@ def reliability_figure(reliability: dict, *, title: str = "Reliability: observed
     ]
     return _figure(traces, title, "Mean predicted probability in the bin", "Observed event rate in the bin",
                    xaxis=dict(range=[0, top * 1.05]), yaxis=dict(range=[0, top * 1.05]), height=400)
+
+
+# --------------------------------------------------------------------------- comparison
+
+#: Line colour, dash and marker symbol of each compared score, the reference first.
+_MODEL_STYLES = (
+    (PALETTE["blue"], "solid", "diamond"), (PALETTE["vermillion"], "dash", "square"),
+    (PALETTE["green"], "dot", "triangle-up"), (PALETTE["purple"], "dashdot", "circle"),
+    (PALETTE["orange"], "longdash", "x"),
+)
+
+
+def _model_style(i: int):
+    return _MODEL_STYLES[i % len(_MODEL_STYLES)]
+
+
+def _overlay(curves: dict, points: dict | None, space: str, max_points: int, point_label: str):
+    """Traces of several exact curves (thinned for drawing) and each one's point as a marker."""
+    traces = []
+    for i, (name, curve) in enumerate(curves.items()):
+        color, dash, symbol = _model_style(i)
+        idx = thin(curve, space, max_points)
+        if space == "pr":
+            idx = idx[idx > 0]  # "flag none" has no precision (0/0)
+            x, y = curve.recall, curve.precision
+            auc = f"AP {curve.average_precision:.3f}"
+            tmpl = "recall %{x:.3f}<br>precision %{y:.3f}"
+        else:
+            x, y = curve.fpr, curve.recall
+            auc = f"AUC {curve.roc_auc:.3f}"
+            tmpl = "FPR %{x:.4f}<br>recall %{y:.3f}"
+        role = "reference" if i == 0 else "candidate"
+        traces.append(dict(
+            type="scatter", x=x[idx], y=y[idx], mode="lines", name=f"{name} ({role}, {auc})",
+            customdata=idx, line=dict(color=color, width=2, dash=dash),
+            hovertemplate=f"{name}<br>point %{{customdata:,}}<br>{tmpl}<extra></extra>"))
+        k = None if points is None else points.get(name)
+        if k is not None and (space != "pr" or k > 0) and _keep_marker(x[k], y[k]):
+            traces.append(_marker_trace(x[k], y[k], f"{name}: {point_label}",
+                                        dict(symbol=symbol, size=13, color=color,
+                                             line=dict(width=2, color="white")),
+                                        f"{name} at {point_label}"))
+    return traces
+
+
+def compare_roc_figure(curves: dict, points: dict | None = None, *, point_label: str = "its point",
+                       max_points: int = MAX_POINTS) -> go.Figure:
+    """Overlaid ROC curves of scores on the same cases (name -> exact Curve, the reference first),
+    each score's operating point (name -> curve index) marked in its own colour and shape."""
+    traces = _overlay(curves, points, "roc", max_points, point_label)
+    traces.append(dict(type="scatter", x=[0, 1], y=[0, 1], mode="lines", name="Chance (AUC 0.5)",
+                       line=dict(color=PALETTE["grey"], dash="dash"), hoverinfo="skip"))
+    return _figure(traces, "ROC curves on the same cases", "False-positive rate (1 − specificity)",
+                   "Recall (true-positive rate)", height=460, xaxis=dict(range=[-0.02, 1.02]),
+                   yaxis=dict(range=[-0.02, 1.02]))
+
+
+def compare_pr_figure(curves: dict, points: dict | None = None, *, point_label: str = "its point",
+                      max_points: int = MAX_POINTS) -> go.Figure:
+    """Overlaid precision–recall curves (see :func:`compare_roc_figure`) with the prevalence
+    baseline, which is the same for every score (Saito & Rehmsmeier 2015)."""
+    traces = _overlay(curves, points, "pr", max_points, point_label)
+    prev = next(iter(curves.values())).prevalence
+    traces.append(dict(type="scatter", x=[0, 1], y=[prev] * 2, mode="lines",
+                       name=f"Baseline: prevalence {prev:.2%}",
+                       line=dict(color=PALETTE["grey"], dash="dash"), hoverinfo="skip"))
+    return _figure(traces, "Precision–recall curves on the same cases",
+                   "Recall (share of events flagged)", "Precision (share of flags that are events)",
+                   height=460, xaxis=dict(range=[-0.02, 1.02]), yaxis=dict(range=[-0.02, 1.02]))

@@ -38,6 +38,7 @@ PAGES = [
     st.Page("views/tradeoffs.py", title="Trade-offs", icon=":material/tune:", url_path="tradeoffs"),
     st.Page("views/decide.py", title="Decide", icon=":material/gavel:", url_path="decide"),
     st.Page("views/evidence.py", title="Evidence", icon=":material/verified:", url_path="evidence"),
+    st.Page("views/compare.py", title="Compare", icon=":material/compare_arrows:", url_path="compare"),
     st.Page("views/memo.py", title="Memo", icon=":material/description:", url_path="memo"),
     st.Page("views/recheck.py", title="Recheck", icon=":material/update:", url_path="recheck"),
 ]

@@ -24,7 +24,14 @@ from core import cautions
 from core.memo_content import DASH, Block, fmt_count, fmt_num, fmt_pct, fmt_threshold
 
 __all__ = ["comparison_blocks", "comparison_summary_line", "compare_memo_blocks", "compare_title",
-           "compare_pdf", "compare_markdown", "write_compare_pdf", "write_compare_markdown"]
+           "compare_pdf", "compare_markdown", "write_compare_pdf", "write_compare_markdown",
+           "difference_rows", "disagreement_rows", "DIFFERENCE_HEADER", "DISAGREEMENT_HEADER"]
+
+#: Columns of :func:`difference_rows` and :func:`disagreement_rows` (the interval column's
+#: header names the confidence level where it is shown).
+DIFFERENCE_HEADER = ("Comparison", "Reference", "Candidate", "Difference", "Interval", "Settled",
+                     "Method")
+DISAGREEMENT_HEADER = ("Cases", "Count", "Test")
 
 _POINT_WORDS = {"workload": "the same workload (flag rate)", "recall": "the same recall",
                 "policy": "the same policy, each at its own threshold",
@@ -84,7 +91,8 @@ _SETTLED = {"candidate": "favours the candidate", "reference": "favours the refe
             "unclear": "unclear (interval holds 0)", "no interval": DASH}
 
 
-def _difference_rows(pair: dict) -> list[tuple]:
+def difference_rows(pair: dict) -> list[tuple]:
+    """One row per difference of a pair (candidate minus reference) in DIFFERENCE_HEADER order."""
     rows = []
     diffs = [pair["roc_auc_difference"], pair["average_precision"]]
     for kind in ("workload", "recall", "policy", "thresholds"):
@@ -112,7 +120,8 @@ def _mcnemar_text(res) -> str:
     return f"p = {text} ({res['method']})"
 
 
-def _disagreement_rows(dis: dict) -> list[tuple]:
+def disagreement_rows(dis: dict) -> list[tuple]:
+    """The case-level disagreement of a pair at one point set, in DISAGREEMENT_HEADER order."""
     return [
         ("Events caught by both", fmt_num(dis["events_both"], 0), DASH),
         ("Events caught by the reference only", fmt_num(dis["events_only_reference"], 0), DASH),
@@ -170,13 +179,13 @@ def comparison_blocks(comp: dict, *, heading: str = "Comparison of score version
         add(Block("p", pair["verdict_text"]))
         add(Block("table", header=("Comparison", "Reference", "Candidate", "Difference",
                                    f"{level} interval", "Settled", "Method"),
-                  rows=tuple(_difference_rows(pair)),
+                  rows=tuple(difference_rows(pair)),
                   widths=(0.22, 0.1, 0.1, 0.11, 0.17, 0.12, 0.18)))
         own = comp["own_points"]
         dis = pair["disagreement"].get(own)
         if dis:
             add(Block("p", f"Case by case at {_POINT_WORDS.get(own, own)}:"))
-            add(Block("table", header=("Cases", "Count", "Test"), rows=tuple(_disagreement_rows(dis)),
+            add(Block("table", header=("Cases", "Count", "Test"), rows=tuple(disagreement_rows(dis)),
                       widths=(0.45, 0.15, 0.4)))
         if pair.get("accuracy_trap_text"):
             add(Block("caution", pair["accuracy_trap_text"]))

@@ -222,6 +222,25 @@ def _analysis(fingerprint: str, policy_text: str, threshold, origin, design, see
                    n_replicates=reps, calibrated=calibrated, production_decimals=decimals)
 
 
+def _comparison(ds, policy, seed: int, reps: int):
+    """With extra score columns mapped: the comparison for the memo's section (the paired
+    bootstrap with the record's seed and replicates, shared with the Compare page's cache)."""
+    if ds.kind != "rows" or not ds.extra_scores:
+        return None
+    from app import comparison
+
+    done = comparison.cached(ds, policy, n_replicates=reps, seed=seed)
+    if done is not None:
+        return done
+    bar = st.progress(0.0, text="Comparing the score versions…")
+    comp = comparison.comparison(
+        ds, policy, bootstrap=True, n_replicates=reps, seed=seed,
+        progress=lambda d_, t_: bar.progress(min(d_ / max(t_, 1), 1.0),
+                                             text=f"Paired bootstrap: {d_:,} of {t_:,} replicates"))
+    bar.empty()
+    return comp
+
+
 def _build_pdf(sha: str) -> None:
     """Build the PDF of the record on the page (kept for that record only)."""
     from core.memo_pdf import memo_pdf
@@ -398,7 +417,8 @@ def render() -> None:
         supersedes = ss[K + "supersedes"].strip() or None
         created = _created({"fp": ds.fingerprint, "policy": text, "settings": list(settings),
                             "fields": fields, "supersedes": supersedes})
-        record = build_record(analysis, memo_fields=fields, supersedes=supersedes, created_utc=created)
+        record = build_record(analysis, memo_fields=fields, supersedes=supersedes, created_utc=created,
+                              comparison=_comparison(ds, policy, seed, reps))
     except InputError as exc:
         st.error(str(exc))
         return
