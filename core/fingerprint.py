@@ -118,34 +118,156 @@ def _merge(codes: np.ndarray, texts: list) -> tuple[np.ndarray, np.ndarray]:
     return remap[codes], out
 
 
-def _arrow_text_codes(arr) -> tuple[np.ndarray, np.ndarray]:
+#: Mask of the low k bytes of a little-endian 64-bit word, k = 0..8.
+_LOW_BYTES = np.array([(1 << (8 * k)) - 1 for k in range(8)] + [(1 << 64) - 1], dtype=np.uint64)
+#: Strings up to this many bytes are grouped through 64-bit words; longer ones by Arrow's hashing.
+_WORD_BYTES = 32
+#: A sample with fewer distinct keys than 1/_FEW of its size is grouped by a hash table.
+_FEW = 8
+
+
+def _first_rows(codes: np.ndarray) -> np.ndarray:
+    """Row of each code's first appearance, for codes numbered in order of first appearance."""
+    if codes.size == 0:
+        return np.empty(0, dtype=np.int64)
+    top = np.maximum.accumulate(codes)
+    new = np.empty(codes.shape[0], dtype=bool)
+    new[0] = True
+    np.greater(top[1:], top[:-1], out=new[1:])
+    return np.flatnonzero(new)
+
+
+def _n_distinct(values: np.ndarray) -> int:
+    """Number of distinct values (one SIMD sort)."""
+    s = np.sort(values)
+    return int(np.count_nonzero(s[1:] != s[:-1])) + 1 if s.size else 0
+
+
+def _group_keys(key: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Equal keys -> one code, numbered in order of first appearance: ``(codes, first_rows)``.
+
+    Exact for any keys; only the speed depends on the route. Few distinct
+    keys (judged on an even sample): a hash table (``pandas.factorize``),
+    cache-resident. Many: one SIMD argsort of the keys, runs of equal keys,
+    each run's first row by ``minimum.reduceat`` and the runs renumbered by
+    first row -- random access into a large hash table costs more than the sort.
+    """
+    n = key.shape[0]
+    step = max(1, n // 65536)
+    sample = key[::step]
+    if n < 4096 or _n_distinct(sample) * _FEW <= sample.shape[0]:
+        codes, _ = pd.factorize(key, sort=False)
+        codes = np.asarray(codes, dtype=np.int64)
+        return codes, _first_rows(codes)
+    order = np.argsort(key)
+    ks = key[order]
+    brk = np.flatnonzero(ks[1:] != ks[:-1])
+    del ks
+    starts = np.empty(brk.shape[0] + 1, dtype=np.int64)
+    starts[0] = 0
+    np.add(brk, 1, out=starts[1:])
+    first = np.minimum.reduceat(order, starts)  # each run's first row
+    rank = np.argsort(first)  # runs in order of first appearance
+    code_of_run = np.empty(rank.shape[0], dtype=np.int64)
+    code_of_run[rank] = np.arange(rank.shape[0], dtype=np.int64)
+    sizes = np.diff(np.append(starts, n))
+    codes = np.empty(n, dtype=np.int64)
+    codes[order] = np.repeat(code_of_run, sizes)
+    return codes, first[rank]
+
+
+def _string_groups(arr) -> tuple[np.ndarray, np.ndarray] | None:
+    """Exact grouping of a large_string array's values (nulls one group of their own).
+
+    Each string is read as up to four little-endian 64-bit words (bytes past
+    its end zeroed) plus its length (-1 for null). Strings of at most 7
+    bytes are one word with the length in the top byte: an injective key.
+    Longer ones are grouped by a 64-bit mix of words and length, and every
+    row is then checked equal, word by word, to its group's first row (a
+    hash collision would show there). Returns ``(codes, first_rows)`` as
+    :func:`_group_keys`, or None when the strings are too long or a
+    collision was found (the caller then uses Arrow's hashing).
+    """
+    n = len(arr)
+    offsets = np.frombuffer(arr.buffers()[1], dtype="<i8")[arr.offset : arr.offset + n + 1]
+    lengths = np.diff(offsets)
+    longest = int(lengths.max()) if n else 0
+    if longest > _WORD_BYTES:
+        return None
+    nwords = max(1, -(-longest // 8))
+    lo, hi = int(offsets[0]), int(offsets[-1])
+    padded = np.zeros(hi - lo + 8 * nwords, dtype=np.uint8)
+    if hi > lo:
+        padded[: hi - lo] = np.frombuffer(arr.buffers()[2], dtype=np.uint8)[lo:hi]
+    # every byte position as the start of an (unaligned) little-endian 64-bit word
+    at = np.ndarray(shape=(padded.shape[0] - 7,), dtype="<u8", buffer=padded, strides=(1,))
+    starts = offsets[:-1] - lo if lo else offsets[:-1]
+    length_code = lengths  # -1 for null (a null's length is 0 in the offsets)
+    if arr.null_count:
+        length_code = lengths.copy()
+        length_code[~np.asarray(arr.is_valid())] = -1
+    if longest <= 7:  # one word, the length in its top byte: injective
+        key = at[starts]
+        key &= _LOW_BYTES[lengths]
+        key |= np.left_shift(length_code.view(np.uint64), np.uint64(56))
+        return _group_keys(key)
+    words = []
+    for j in range(nwords):
+        wj = at[starts + 8 * j] if j else at[starts]
+        wj &= _LOW_BYTES[np.clip(lengths - 8 * j, 0, 8)]
+        words.append(wj)
+    key = length_code.astype(np.uint64) * np.uint64(0x9E3779B97F4A7C15)
+    for wj in words:
+        key ^= wj
+        key *= np.uint64(0xBF58476D1CE4E5B9)
+        key ^= key >> np.uint64(31)
+    codes, first = _group_keys(key)
+    rep = first[codes]
+    same = length_code[rep] == length_code
+    for wj in words:
+        same &= wj[rep] == wj
+    if not same.all():
+        return None
+    return codes, first
+
+
+def _arrow_text_codes(arr, *, with_arrow: bool = False):
     """text_codes of a pyarrow string array, vectorised.
 
-    The raw strings are dictionary-encoded first (indices in order of first
-    appearance); only the distinct strings are then trimmed and checked for
+    The raw strings are grouped first (codes in order of first appearance:
+    :func:`_string_groups`, or Arrow's ``dictionary_encode`` for long
+    strings); only the distinct strings are then trimmed and checked for
     missing-value words, and re-encoded when that merges or removes any.
     Re-encoding the dictionary in its own order keeps the codes numbered by
-    first appearance in the rows.
+    first appearance in the rows. ``with_arrow``: also return the
+    dictionary as an Arrow array (for the fingerprint's payload).
     """
     import pyarrow as pa
     import pyarrow.compute as pc
 
     if isinstance(arr, pa.ChunkedArray):
         arr = arr.combine_chunks() if arr.num_chunks != 1 else arr.chunk(0)
-    if pa.types.is_large_string(arr.type):
-        arr = arr.cast(pa.string())
-    enc = arr.dictionary_encode()
-    codes = enc.indices.fill_null(-1).to_numpy(zero_copy_only=False).astype(np.int64)
-    raw = enc.dictionary
+    if not pa.types.is_large_string(arr.type):
+        arr = arr.cast(pa.large_string())
+    groups = _string_groups(arr)
+    if groups is None:
+        enc = arr.dictionary_encode()
+        codes = enc.indices.fill_null(-1).to_numpy(zero_copy_only=False).astype(np.int64)
+        raw = enc.dictionary
+    else:
+        codes, first = groups
+        raw = arr.take(pa.array(first, type=pa.int64()))  # holds one null when the rows do
     clean = pc.utf8_trim_whitespace(raw)
-    words = pc.is_in(clean, value_set=pa.array(sorted(_MISSING_WORDS), type=pa.string()))
-    if pc.any(words).as_py() or not clean.equals(raw):
-        clean = pc.if_else(words, pa.scalar(None, type=pa.string()), clean)
+    words = pc.is_in(clean, value_set=pa.array(sorted(_MISSING_WORDS), type=pa.large_string()))
+    if raw.null_count or pc.any(words).as_py() or not clean.equals(raw):
+        clean = pc.if_else(words, pa.scalar(None, type=clean.type), clean)
         enc2 = clean.dictionary_encode()
         remap = np.append(enc2.indices.fill_null(-1).to_numpy(zero_copy_only=False), -1)
         codes = remap.astype(np.int64)[codes]
         clean = enc2.dictionary
     dictionary = clean.to_numpy(zero_copy_only=False).astype(object)
+    if with_arrow:
+        return codes, dictionary, clean
     return codes, dictionary
 
 
@@ -168,18 +290,32 @@ def _numeric_texts(uniques: np.ndarray) -> list:
     return texts
 
 
-def text_codes(values) -> tuple[np.ndarray, np.ndarray]:
+def text_codes(values, *, with_arrow: bool = False) -> tuple:
     """Canonical text of each value as ``(codes, dictionary)``.
 
     ``dictionary`` holds the distinct canonical texts (``str``) in order of
     first appearance and ``codes`` (int64) indexes it, -1 where the value is
     missing -- so ``(codes, dictionary)`` is a function of the sequence of
-    canonical texts alone, whatever the source type. Vectorised: text goes
-    through pyarrow compute (trim, missing words, dictionary encoding);
-    numbers are factorised and only their distinct values converted; mixed
-    Python objects (an Excel column of numbers and text) are factorised and
-    each distinct value converted by :func:`value_text`.
+    canonical texts alone, whatever the source type. Vectorised: text is
+    grouped through 64-bit words of its bytes (:func:`_string_groups`) or
+    Arrow's hashing, then trimmed and checked for missing-value words on the
+    distinct strings only (pyarrow compute); integers are grouped by value
+    and only their distinct values converted; other numbers are factorised
+    and their distinct values converted; mixed Python objects (an Excel
+    column of numbers and text) are factorised and each distinct value
+    converted by :func:`value_text`.
+
+    ``with_arrow``: return ``(codes, dictionary, arrow)`` where ``arrow`` is
+    the dictionary as a pyarrow string array when the route made one (else
+    None); :func:`fingerprint_arrays` hashes it without a round trip.
     """
+    out = _text_codes(values)
+    if with_arrow:
+        return out if len(out) == 3 else (*out, None)
+    return out[:2]
+
+
+def _text_codes(values) -> tuple:
     import pyarrow as pa
 
     ser = _as_series(values)
@@ -190,6 +326,12 @@ def text_codes(values) -> tuple[np.ndarray, np.ndarray]:
     if pd.api.types.is_bool_dtype(dtype):
         codes, uniques = pd.factorize(ser, use_na_sentinel=True)
         return _merge(np.asarray(codes, dtype=np.int64), [value_text(u) for u in uniques])
+    if isinstance(dtype, np.dtype) and dtype.kind in "iu" and dtype.itemsize == 8:
+        # distinct integers have distinct texts: no merging, no Python loop
+        ints = np.ascontiguousarray(ser.to_numpy())
+        codes, first = _group_keys(ints.view(np.uint64))
+        texts = pa.array(ints[first]).cast(pa.string())
+        return codes, texts.to_numpy(zero_copy_only=False).astype(object), texts
     if pd.api.types.is_numeric_dtype(dtype):
         codes, uniques = pd.factorize(ser, use_na_sentinel=True)
         return _merge(np.asarray(codes, dtype=np.int64), _numeric_texts(np.asarray(uniques)))
@@ -197,16 +339,16 @@ def text_codes(values) -> tuple[np.ndarray, np.ndarray]:
     if arrow is not None and (
         pa.types.is_string(arrow.type) or pa.types.is_large_string(arrow.type)
     ):
-        return _arrow_text_codes(arrow)
+        return _arrow_text_codes(arrow, with_arrow=True)
     if dtype == object:
         try:
             arr = pa.array(ser.to_numpy(dtype=object), from_pandas=True)
         except (pa.ArrowInvalid, pa.ArrowTypeError):
             arr = None
         if arr is not None and (pa.types.is_string(arr.type) or pa.types.is_large_string(arr.type)):
-            return _arrow_text_codes(arr)
+            return _arrow_text_codes(arr, with_arrow=True)
         if arr is not None and (pa.types.is_integer(arr.type) or pa.types.is_floating(arr.type)):
-            return text_codes(pd.Series(arr.to_numpy(zero_copy_only=False)))
+            return _text_codes(pd.Series(arr.to_numpy(zero_copy_only=False)))
     codes, uniques = pd.factorize(ser, use_na_sentinel=True)
     return _merge(np.asarray(codes, dtype=np.int64), [value_text(u) for u in uniques])
 
@@ -259,37 +401,51 @@ def canonical_mapping(mapping: dict) -> dict:
     return out
 
 
-def _text_payload(codes: np.ndarray, dictionary: np.ndarray) -> bytes:
+def _text_payload(codes: np.ndarray, dictionary) -> list:
+    """The bytes of a text column, as parts hashed in turn (see the module docstring).
+
+    ``dictionary`` is the object array of :func:`text_codes`, or the same
+    strings as a pyarrow array (no round trip through Python strings).
+    """
     import pyarrow as pa
 
-    arr = pa.array(list(dictionary), type=pa.large_string())
+    if isinstance(dictionary, (pa.Array, pa.ChunkedArray)):
+        arr = dictionary
+        if isinstance(arr, pa.ChunkedArray):
+            arr = arr.combine_chunks()
+        if not pa.types.is_large_string(arr.type):
+            arr = arr.cast(pa.large_string())
+    else:
+        arr = pa.array(list(dictionary), type=pa.large_string())
     offsets = np.frombuffer(arr.buffers()[1], dtype="<i8")[arr.offset : arr.offset + len(arr) + 1]
     data = arr.buffers()[2]
     start, end = int(offsets[0]), int(offsets[-1])
-    body = b"" if data is None or end == start else memoryview(data)[start:end].tobytes()
-    head = f"{len(dictionary)}\x1d".encode()
-    return (
-        head
-        + np.diff(offsets).astype("<i8").tobytes()
-        + body
-        + np.asarray(codes, dtype="<i8").tobytes()
-    )
+    body = b"" if data is None or end == start else memoryview(data)[start:end]
+    return [
+        f"{len(arr)}\x1d".encode(),
+        np.diff(offsets).astype("<i8"),
+        body,
+        np.ascontiguousarray(codes, dtype="<i8"),
+    ]
 
 
-def _canonical_bytes(values, text: bool, codes=None) -> tuple[str, bytes]:
+def _canonical_bytes(values, text: bool, codes=None) -> tuple[str, list]:
+    """Type tag and the canonical bytes of one array, as parts to hash in turn."""
     if codes is not None:
         return "s", _text_payload(*codes)
     a = values if isinstance(values, pd.Series) else np.asarray(values)
     if not text:
         a = np.asarray(a)
         if a.dtype == np.bool_:
-            return "u8", a.astype("<u1").tobytes()
+            return "u8", [np.ascontiguousarray(a).view("<u1")]  # True/False stored as 1/0
         if a.dtype.kind == "M":
-            return "t", a.astype("datetime64[ns]").view("<i8").tobytes()
+            return "t", [np.ascontiguousarray(a, dtype="datetime64[ns]").view("<i8")]
         if a.dtype.kind in "iuf":
-            f = np.asarray(a, dtype="<f8") + 0.0
-            f = np.where(np.isnan(f), _NAN, f)
-            return "f8", f.tobytes()
+            f = np.asarray(a, dtype="<f8") + 0.0  # a new array, -0.0 written as +0.0
+            nan = np.isnan(f)
+            if nan.any():
+                f[nan] = _NAN
+            return "f8", [f]
     return "s", _text_payload(*text_codes(a))
 
 
@@ -315,7 +471,8 @@ def fingerprint_arrays(
         order of first appearance, then the code of every row).
     text_codes_of : dict, optional
         Name -> ``(codes, dictionary)`` already computed by
-        :func:`text_codes` for that array, to save recomputing it.
+        :func:`text_codes` for that array, to save recomputing it; the
+        dictionary may be given as a pyarrow string array of the same texts.
     """
     digest = hashlib.sha256()
     text = set(text)
@@ -324,9 +481,10 @@ def fingerprint_arrays(
         values = arrays[name]
         if values is None:
             continue
-        tag, payload = _canonical_bytes(values, name in text, known.get(name))
+        tag, parts = _canonical_bytes(values, name in text, known.get(name))
         digest.update(f"{name}\x1f{tag}\x1f{len(values)}\x1e".encode())
-        digest.update(payload)
+        for part in parts:
+            digest.update(part)
     digest.update(
         json.dumps(
             canonical_mapping(mapping), sort_keys=True, separators=(",", ":"), allow_nan=False

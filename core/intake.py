@@ -1004,8 +1004,8 @@ def _groups(raw: RawTable, m: Mapping, rows: _Rows, warnings: list) -> dict[str,
 
 
 def _cluster(raw: RawTable, column: str, rows: _Rows, warnings: list) -> tuple:
-    """(codes, dictionary) of the cluster ids; a missing id raises."""
-    codes, dictionary = text_codes(raw.frame[column])
+    """(codes, dictionary, arrow dictionary or None) of the cluster ids; a missing id raises."""
+    codes, dictionary, arrow = text_codes(raw.frame[column], with_arrow=True)
     bad = rows.bad(codes < 0)
     if bad.size:
         raise InputError(
@@ -1030,13 +1030,22 @@ def _cluster(raw: RawTable, column: str, rows: _Rows, warnings: list) -> tuple:
                 column,
             )
         )
-    return codes, dictionary
+    return codes, dictionary, arrow
 
 
 def _texts(pair: tuple, keep: np.ndarray | None) -> tuple[np.ndarray, tuple]:
-    """Canonical text array of the kept rows and its (codes, dictionary)."""
-    codes, dictionary = pair if keep is None else recode(pair[0], pair[1], keep)
-    return texts_from_codes(codes, dictionary), (codes, dictionary)
+    """Canonical text array of the kept rows and its (codes, dictionary) for the fingerprint.
+
+    ``pair`` is ``(codes, dictionary)`` or ``(codes, dictionary, arrow)``: with
+    every row kept, the fingerprint hashes the Arrow copy of the dictionary
+    when there is one (the same texts, without a round trip through Python strings).
+    """
+    codes, dictionary = pair[0], pair[1]
+    if keep is not None:
+        codes, dictionary = recode(codes, dictionary, keep)
+        return texts_from_codes(codes, dictionary), (codes, dictionary)
+    arrow = pair[2] if len(pair) > 2 else None
+    return texts_from_codes(codes, dictionary), (codes, dictionary if arrow is None else arrow)
 
 
 def _outcome_checks(

@@ -942,6 +942,84 @@ def test_subset_fingerprint_equals_the_loaded_subset():
     assert ds.subset(mask).fingerprint == sub.fingerprint
 
 
+def _reference_codes(values) -> tuple[list[int], list[str]]:
+    """Codes by first appearance of the canonical texts, one value at a time (common practice,
+    no source): strip surrounding spaces, the missing words and None are missing (-1)."""
+    from core.reading import MISSING_TEXT
+
+    seen: dict[str, int] = {}
+    out = []
+    for v in values:
+        t = None if v is None else str(v).strip()
+        if t is None or t in MISSING_TEXT:
+            out.append(-1)
+            continue
+        out.append(seen.setdefault(t, len(seen)))
+    return out, list(seen)
+
+
+@pytest.mark.parametrize("width", [3, 7, 8, 12, 31, 40])  # one word / mixed words / Arrow hashing
+@pytest.mark.parametrize("distinct", [5, 3000])  # hash-table route / sort route
+def test_text_codes_of_many_ids_equal_a_one_by_one_numbering(width, distinct):
+    from core.fingerprint import text_codes
+
+    rng = np.random.default_rng(width * 7 + distinct)
+    pool = [f"P{i:0{width - 1}d}"[:width] if k % 3 else f"Q{i}" for k, i in
+            enumerate(rng.integers(0, 10 ** min(width - 1, 9), distinct))]
+    pool += ["", " P1 ", "P1", "NA", "  ", "é" * (width // 2 + 1)]
+    rows = [pool[i] for i in rng.integers(0, len(pool), 12_000)]
+    rows[5] = None
+    want_codes, want_texts = _reference_codes(rows)
+    for values in (pd.Series(rows, dtype="str"), np.array(rows, dtype=object)):
+        got_codes, got_texts = text_codes(values)
+        assert got_codes.tolist() == want_codes
+        assert got_texts.tolist() == want_texts
+
+
+def test_text_codes_survive_a_hash_collision(monkeypatch):
+    # The 64-bit mix of a long id's words is checked row by row against its group's first row;
+    # a collision (forced here: every key equal) falls back to Arrow's exact hashing.
+    import core.fingerprint as fp
+
+    rows = [f"customer-{i % 700:05d}" for i in range(9000)]
+    want_codes, want_texts = _reference_codes(rows)
+    real = fp._group_keys
+    monkeypatch.setattr(fp, "_group_keys", lambda key: real(np.zeros_like(key)))
+    codes, texts = fp.text_codes(pd.Series(rows, dtype="str"))
+    assert codes.tolist() == want_codes and texts.tolist() == want_texts
+    assert fp._string_groups(pa.array(rows, type=pa.large_string())) is None
+
+
+def test_integer_ids_match_their_text():
+    from core.fingerprint import text_codes
+
+    ids = np.random.default_rng(4).integers(-(10**12), 10**12, 20_000) // 1000
+    a_codes, a_texts = text_codes(ids)
+    b_codes, b_texts = text_codes(pd.Series(ids.astype(str), dtype="str"))
+    assert a_codes.tolist() == b_codes.tolist() and a_texts.tolist() == b_texts.tolist()
+    assert a_texts[0] == str(ids[0]) and a_codes[0] == 0
+
+
+def test_many_cluster_ids_one_fingerprint_from_csv_parquet_and_arrays():
+    rng = np.random.default_rng(11)
+    n = 20_000
+    frame = pd.DataFrame({
+        "score": rng.random(n).round(6),
+        "label": (rng.random(n) < 0.1).astype(int),
+        "patient": np.char.add("P", rng.integers(10_000, 16_000, n).astype(str)),
+        "site": np.array(["North", "Quay", "Vale"])[rng.integers(0, 3, n)],
+    })
+    mp = {**M, "groups": ["site"], "cluster": "patient"}
+    a = load_dataset(frame.to_csv(index=False).encode(), mp)
+    b = load_dataset(parquet(frame), mp)
+    c = Dataset.from_arrays(frame["label"], frame["score"], groups={"site": frame["site"]},
+                            cluster=frame["patient"].to_numpy(dtype=object))
+    assert a.fingerprint == b.fingerprint
+    assert a.cluster.tolist() == frame["patient"].tolist() == c.cluster.tolist()
+    keep = np.arange(n) % 5 != 0
+    assert a.subset(keep).fingerprint == load_dataset(parquet(frame[keep]), mp).fingerprint
+
+
 # --------------------------------------------------------------------------- round trip property
 
 _TEXT = st.text(alphabet='bcdgkmpqvwxz ,;"é', min_size=1, max_size=6)
