@@ -30,6 +30,7 @@ __all__ = [
     "recheck_pdf",
     "recheck_title",
     "rule_line",
+    "source_words",
     "write_recheck_markdown",
     "write_recheck_pdf",
 ]
@@ -87,6 +88,14 @@ def policy_now_rows(now: dict) -> list[tuple]:
                      fmt_num(diff["threshold"], 4), fmt_count(diff["flagged"]), "",
                      fmt_num(diff["cost_per_period"], 1), fmt_num(diff["flagged_per_period"], 1)))
     return rows
+
+
+_SOURCES = {"file": "set in the policy", "data": "from the new data", "default": "default"}
+
+
+def source_words(source) -> str:
+    """Where a resolved policy value comes from, in words."""
+    return "—" if not source else _SOURCES.get(source, str(source))
 
 
 def policy_value(x) -> str:
@@ -277,7 +286,7 @@ def recheck_blocks(rec: dict) -> list[Block]:
         b.append(Block("table", header=("Policy key", "Record's policy (approval)", "Used now",
                                         "Source now"),
                        rows=tuple((c["key"], policy_value(c["old"]), policy_value(c["new"]),
-                                   c.get("source") or "—") for c in now.get("changes") or []),
+                                   source_words(c.get("source"))) for c in now.get("changes") or []),
                        widths=(0.3, 0.25, 0.25, 0.2)))
     elif now.get("verdict_basis"):
         b.append(Block("p", "The rule verdicts above and this choice use the same policy: the "

@@ -40,6 +40,7 @@ from core.recheck_memo import (
     policy_value,
     recheck_markdown,
     rule_line,
+    source_words,
 )
 from core.record import dumps_record, loads_record
 
@@ -263,7 +264,7 @@ def _show_now(rec: dict) -> None:
     if changed:
         st.dataframe(_table(("policy key", "record's policy (approval)", "used now", "source now"),
                             [(c["key"], policy_value(c["old"]), policy_value(c["new"]),
-                              c.get("source") or "—") for c in now["changes"]]),
+                              source_words(c.get("source"))) for c in now["changes"]]),
                      hide_index=True, width="stretch")
     st.dataframe(_table(policy_now_header(now), policy_now_rows(now)), hide_index=True,
                  width="stretch")
