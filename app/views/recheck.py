@@ -125,7 +125,7 @@ def _overrides(record) -> dict:
 
 def _settings(record):
     an = record.get("analysis") or {}
-    c1, c2, c3, c4 = st.columns(4)
+    c1, c2, c3, c4 = st.columns([1, 1.5, 1, 0.8])
     as_of = c1.date_input("As of (label maturity)", value=_dt.date.today(), key=K + "as_of")
     live = c2.checkbox("Collected while the threshold was live", key=K + "live",
                        help="Flagged cases were acted on, which changes their outcomes.")
