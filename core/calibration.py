@@ -33,7 +33,9 @@ it wrong. For scores in [0, 1] with higher meaning riskier,
   ``estimate -/+ z se`` with the model-based (Fisher information) standard
   errors, or with a cluster column the cluster-robust sandwich with the
   small-sample factor ``K/(K-1) (n-1)/(n-p)`` (with sampling weights and no
-  clusters, each row is its own cluster). Reference: a logistic GLM of y on
+  clusters, each row is its own cluster; a count table with squared-weight
+  sums gives the same sandwich per line, its factor taking the weighted cases
+  for the row count it does not know). Reference: a logistic GLM of y on
   logit(p) (statsmodels ``GLM``, ``offset`` for the intercept).
 * **Observed / expected** (:func:`observed_expected_ratio`): events over the
   sum of the scores, ``O / E``; interval: the Wilson interval of the observed
@@ -111,12 +113,15 @@ class _Binomial:
     squared weights for sampling weights, and cluster codes."""
 
     def __init__(self, p, e, n, *, sq=None, codes=None, n_clusters=0, rows_unweighted=False,
-                 row_counts=None, is_rows=True):
+                 row_counts=None, is_rows=True, e_sq=None, n_sq=None):
         self.is_rows = bool(is_rows)
         self.p = np.asarray(p, dtype=np.float64)
         self.e = np.asarray(e, dtype=np.float64)
         self.n = np.asarray(n, dtype=np.float64)
         self.sq = sq  # per-unit sum of squared weights, or None
+        # a count table's squared-weight sums per class (sampling weights), or None
+        self.e_sq = None if e_sq is None else np.asarray(e_sq, dtype=np.float64)
+        self.n_sq = None if n_sq is None else np.asarray(n_sq, dtype=np.float64)
         self.codes = codes
         self.K = int(n_clusters)
         self.rows_unweighted = bool(rows_unweighted)
@@ -132,7 +137,9 @@ class _Binomial:
                          sq=None if self.sq is None else self.sq[mask],
                          codes=None if self.codes is None else self.codes[mask],
                          n_clusters=self.K, rows_unweighted=self.rows_unweighted,
-                         row_counts=self.row_counts[mask], is_rows=self.is_rows)
+                         row_counts=self.row_counts[mask], is_rows=self.is_rows,
+                         e_sq=None if self.e_sq is None else self.e_sq[mask],
+                         n_sq=None if self.n_sq is None else self.n_sq[mask])
 
 
 def _from_arrays(y_true, y_prob, sample_weight, cluster, weight_kind):
@@ -180,7 +187,8 @@ def _from_dataset(ds):
     if ds.events_sq is not None:
         sq = ds.events_sq + ds.non_events_sq
     return _Binomial(ds.y_score, ds.events, ds.non_events, sq=sq,
-                     row_counts=ds.events + ds.non_events, is_rows=False)
+                     row_counts=ds.events + ds.non_events, is_rows=False,
+                     e_sq=ds.events_sq, n_sq=ds.non_events_sq)
 
 
 def _check_confidence(confidence):
@@ -440,8 +448,9 @@ def _fit(b: _Binomial, conf, eps) -> RecalibrationFit:
                   slope_high=math.nan, intercept_with_slope=math.nan,
                   intercept_with_slope_se=math.nan, confidence=conf, eps=float(eps),
                   method=FIT_METHOD)
-    # a count table's lines pool many cases: no per-case scores, model-based errors
-    robust = b.is_rows and (b.codes is not None or b.sq is not None)
+    # a count table's lines pool many cases: model-based errors, unless its squared-weight sums
+    # (sampling weights) give the rows' robust sandwich per line
+    robust = (b.is_rows and (b.codes is not None or b.sq is not None)) or b.e_sq is not None
     cov_name = ("cluster-robust" if b.codes is not None and robust else
                 "robust (each row its own cluster)" if robust else "model")
     E, N = float(b.e.sum()), float(b.n.sum())
@@ -490,6 +499,17 @@ def _sandwich(b: _Binomial, L, bread, coef, *, slope_free):
     ``K/(K-1) (n-1)/(n-p)``; without clusters every unit is its own cluster."""
     a, s = coef
     mu = expit(a + s * L)
+    if b.e_sq is not None:
+        # a count table with squared-weight sums: the rows' meat sum_i w_i^2 (y_i - mu)^2 x x'
+        # is, per line, (events_sq (1 - mu)^2 + non_events_sq mu^2) x x'; the CR1 factor takes
+        # the weighted cases for the unknown row count (it differs from 1 by O(1/n))
+        r2 = b.e_sq * (1.0 - mu) ** 2 + b.n_sq * mu ** 2
+        X = np.column_stack([np.ones_like(L), L]) if slope_free else np.ones((L.shape[0], 1))
+        meat = X.T @ (X * r2[:, None])
+        nobs, k = float(b.row_counts.sum()), X.shape[1]
+        if nobs > k:
+            meat = meat * (nobs / (nobs - k))
+        return bread @ meat @ bread
     resid = b.e - (b.e + b.n) * mu
     if slope_free:
         U = np.column_stack([resid, resid * L])

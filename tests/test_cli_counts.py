@@ -525,3 +525,32 @@ def test_readme_sql_example_runs(capsys):
     argv = shlex.split(lines.replace("\\\n", " ").split(">", 1)[0])
     stmt = _sql(argv, capsys)
     assert stmt.startswith("SELECT `risk_score`, `site`") and "GROUP BY" in stmt
+
+
+def test_sampling_weights_with_squared_sums(tmp_path, capsys):
+    # Kish (1965): the effective size (sum w)^2 / sum w^2 needs the squared-weight sums, which
+    # the count table carries per line; the Wilson intervals on it then equal the rows'.
+    # The logistic recalibration's robust (sandwich) errors follow from the same sums (White
+    # 1980, from memory); their small-sample factor takes the weighted cases for the row count.
+    df = _cases(n=5000, seed=13, weighted=True)
+    df.to_parquet(tmp_path / "rows.parquet")
+    r, _, _ = _pick([str(tmp_path / "rows.parquet"), "--score", "score", "--label", "outcome",
+                     "--weight", "w", "--weight-kind", "sampling"], tmp_path, "r", capsys)
+    d, _, _ = _pick([str(tmp_path / "rows.parquet"), "--reduce", "--score", "score", "--label",
+                     "outcome", "--weight", "w", "--weight-kind", "sampling"], tmp_path, "d",
+                    capsys)
+    assert d["data"]["mapping"]["events_sq"] == "events_sq"
+    assert r["threshold"] == d["threshold"] and r["counts"] == d["counts"]
+    for which in ("validation", "deployment"):
+        for name, entry in r["metrics"][which].items():
+            got = dict(d["metrics"][which][name])
+            want = dict(entry)
+            got.pop("bootstrap", None)  # rows resample cases, a count table its cells
+            want.pop("bootstrap", None)
+            _close(want, got, f"{which}/{name}")
+    rf, df_ = r["calibration"]["overall"]["fit"], d["calibration"]["overall"]["fit"]
+    assert df_["covariance"] == rf["covariance"] == "robust (each row its own cluster)"
+    for key in ("intercept", "slope"):
+        assert df_[key] == pytest.approx(rf[key], rel=1e-8)
+    for key in ("intercept_se", "slope_se"):
+        assert df_[key] == pytest.approx(rf[key], rel=1e-3)
