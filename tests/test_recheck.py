@@ -529,3 +529,22 @@ def test_overlap_on_constructed_groups():
     (o,) = r.overlaps["others"]
     assert o["group"] == "band = x" and o["cleared"] is True
     assert o["verdicts_without_lead"][0]["verdict"] != "fails"
+
+
+def test_memo_of_a_changed_policy_lists_the_changes(record, result):
+    # the memo says which policy chose, what changed, and that the verdicts keep the approval's
+    from core.recheck import VERDICT_BASIS, rechoose
+    from core.recheck_memo import recheck_blocks, recheck_markdown
+
+    rec = build_recheck_record(rechoose(result, _changed(record, max_flagged_per_period=400.0)))
+    blocks = recheck_blocks(rec)
+    heads = [b.text for b in blocks if b.kind == "h1"]
+    assert "What a changed policy would choose now" in heads
+    table = next(b for b in blocks if b.kind == "table" and b.header[0] == "Policy key")
+    assert table.rows == (("rules.max_flagged_per_period", "320", "400", "set in the policy"),)
+    md = recheck_markdown(rec)
+    assert "are judged against the decision record" in md  # VERDICT_BASIS, Markdown-escaped
+    assert VERDICT_BASIS in " ".join(b.text for b in blocks if b.kind == "p")
+    same = recheck_markdown(build_recheck_record(result))
+    assert "What the same policy would choose now" in same
+    assert "The rule verdicts above and this choice use the same policy" in same
