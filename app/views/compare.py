@@ -84,7 +84,7 @@ def _tiles(comp, pair) -> None:
         items.append(("Precision difference, same recall", pair.at["recall"]["precision"]))
     if "cost_per_case" in pair.at.get("policy", {}):
         items.append(("Expected cost per case, same policy", pair.at["policy"]["cost_per_case"]))
-    cols = st.columns(len(items))
+    cols = [c for _ in range(0, len(items), 3) for c in st.columns(3)]  # rows of three: room to read
     for col, (label, d) in zip(cols, items):
         col.metric(label, _signed(d, d.difference), border=True,
                    help=f"{d.label}: '{pair.candidate}' {_plain(d, d.candidate)} against "
@@ -105,8 +105,8 @@ def _plain(d, x) -> str:
 def _points_table(comp) -> pd.DataFrame:
     rows = []
     for kind, ps in comp.point_sets.items():
-        target = "" if ps.target is None else (f" ({fmt.pct(ps.target, 2)} flagged)" if kind == "workload"
-                                              else f" (recall {fmt.pct(ps.target)})")
+        target = "" if ps.target is None else (f": {fmt.pct(ps.target, 2)} flagged" if kind == "workload"
+                                              else f": recall {fmt.pct(ps.target)}")
         for name, p in ps.points.items():
             if p is None:
                 rows.append({"Comparison": ps.label + target, "Score": name, "Threshold": "no point meets "
