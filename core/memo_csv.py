@@ -14,6 +14,9 @@ from __future__ import annotations
 import csv
 import io
 import math
+import numbers
+
+import numpy as np
 
 __all__ = ["FORMULA_STARTS", "csv_cell", "threshold_vectors_csv", "metrics_csv"]
 
@@ -24,12 +27,16 @@ def csv_cell(value):
     """A cell value safe to open in a spreadsheet: risky text gets a leading apostrophe."""
     if value is None:
         return ""
-    if isinstance(value, bool):
+    if isinstance(value, (bool, np.bool_)):
         return "true" if value else "false"
-    if isinstance(value, (int, float)):
-        if isinstance(value, float) and math.isnan(value):
-            return ""
-        return repr(value) if isinstance(value, float) else str(value)
+    if isinstance(value, numbers.Real) and not isinstance(value, np.bool_):  # numpy numbers too
+        if isinstance(value, (float, np.floating)):
+            if math.isnan(value):
+                return ""
+            if math.isinf(value):  # a spreadsheet reads -inf as a formula
+                return "'-inf" if value < 0 else "inf"
+            return repr(float(value))
+        return str(int(value))
     text = str(value)
     if text.startswith(FORMULA_STARTS):
         return "'" + text
@@ -38,7 +45,8 @@ def csv_cell(value):
 
 def _write(header, rows) -> str:
     buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
+    # CRLF rows (RFC 4180): the writer then quotes a cell holding a carriage return or line feed
+    w = csv.writer(buf, lineterminator="\r\n")
     w.writerow([csv_cell(h) for h in header])
     for r in rows:
         w.writerow([csv_cell(c) for c in r])
