@@ -220,25 +220,33 @@ class _PoissonTable:
         self.cell_lam = lam[tab].astype(np.float64)
         self.all_tab = self.other_idx.size == 0
 
-    def draw(self, g: np.random.Generator) -> np.ndarray:
-        """One Poisson count per cell (int64)."""
-        u = g.random(self.tab_idx.shape[0])
+    @property
+    def n_tabled(self) -> int:
+        return int(self.tab_idx.shape[0])
+
+    def lookup(self, U: np.ndarray):
+        """Tabled counts for uniforms ``U`` (R, n_tabled): ``(X, tail)`` where ``tail`` lists
+        the flat positions that fell beyond the table (to be drawn by :meth:`fill_tail`)."""
+        R, k = U.shape
         F, G = self.F, self.G
-        j = (u * self.cell_M).astype(np.intp)
+        j = (U * self.cell_M).astype(np.intp)
         j += self.cell_goff
-        fi = G[j]
+        fi = G[j].ravel()
+        u = U.ravel()
+        j = j.ravel()
         act = np.flatnonzero(F[fi] <= u)  # the answer is past the guide
         moved = act
         if act.size:
             fi[act] += 1
             sub = F[fi[act]] <= u[act]
-            act, j = act[sub], j[act[sub]]
+            act = act[sub]
         if act.size:  # bisection between F[lo] <= u and the bucket's end (or the sentinel)
             ua = u[act]
             lo = fi[act]
-            hi = np.minimum(G[j + 1] + 1, self.cell_top[act])
+            top = self.cell_top[act % k]
+            hi = np.minimum(G[j[act] + 1] + 1, top)
             past = F[hi] <= ua
-            hi[past] = self.cell_top[act][past]
+            hi[past] = top[past]
             while True:
                 wide = hi - lo > 1
                 if not wide.any():
@@ -248,11 +256,23 @@ class _PoissonTable:
                 lo = np.where(le, mid, lo)
                 hi = np.where(le, hi, mid)
             fi[act] = hi
-        x = fi - self.cell_foff
+        X = fi.reshape(R, k)
+        X -= self.cell_foff
+        tail = np.zeros(0, dtype=np.intp)
         if moved.size:  # only a cell that moved past its guide can reach the sentinel
-            tail = moved[fi[moved] == self.cell_top[moved]]
-            for i in tail.tolist():  # X | X > K, K = the last tabled value
-                x[i] = _poisson_tail(g, self.cell_lam[i], int(x[i]) - 1)
+            tail = moved[fi[moved] == self.cell_top[moved % k] - self.cell_foff[moved % k]]
+        return X, tail
+
+    def fill_tail(self, g: np.random.Generator, x: np.ndarray, cols) -> None:
+        """Draw X | X > K for the tabled cells ``cols`` of one row ``x`` (beyond the table)."""
+        for c in cols:
+            x[c] = _poisson_tail(g, self.cell_lam[c], int(x[c]) - 1)
+
+    def draw(self, g: np.random.Generator) -> np.ndarray:
+        """One Poisson count per cell (int64)."""
+        X, tail = self.lookup(g.random(self.n_tabled)[None, :])
+        x = X[0]
+        self.fill_tail(g, x, tail.tolist())
         if self.all_tab:
             return x
         out = np.empty(self.k, dtype=np.int64)
@@ -354,45 +374,91 @@ class _Units:
 
         ``out``: a zeroed row to write the counts into (float64), else a new int64 array.
         """
-        counts = np.zeros(self.k, dtype=np.int64) if out is None else out
-        if m <= 0:
-            return counts
-        if self.large_idx.size == 0:
-            m_small = m
-        elif self.small_idx.size == 0:
-            m_small = 0
-        else:
-            m_small = int(g.binomial(m, self.small_share))
-        if m_small:
-            u = g.integers(0, self.small_total, m_small)
-            if self.small_singletons:
-                counts[self.small_idx] = np.bincount(u, minlength=self.small_idx.size)
-            else:
-                counts[self.small_idx] = np.bincount(self.small_rows[u],
-                                                     minlength=self.small_idx.size)
-        m_large = m - m_small
-        if m_large:
-            counts[self.large_idx] = self._draw_large(g, m_large)
-        return counts
+        counts = np.zeros((1, self.k), dtype=np.int64) if out is None else out[None, :]
+        self.draw_rows([g], [m], counts)
+        return counts[0]
 
-    def _draw_large(self, g, m):
-        if self.table is not None:
-            x = self.table.draw(g)  # Poisson(mass): any Poisson means work, see the docstring
-        else:
-            x = g.poisson(m * self.large_share)
+    def draw_rows(self, gens, ms, out: np.ndarray) -> None:
+        """:meth:`draw` for several replicates at once: row i of ``out`` (zeroed) gets
+        Multinomial(ms[i]) counts from generator ``gens[i]`` alone.
+
+        Each generator makes the same calls in the same order as a lone
+        :meth:`draw` (split between small and large cells, small rows, the
+        large cells' uniforms; then beyond-table draws and the correction), so
+        the rows do not depend on how replicates are grouped; the table
+        look-up runs once over all rows.
+        """
+        R = len(gens)
+        m_large = np.zeros(R, dtype=np.int64)
+        tab = self.table
+        U = np.zeros((R, tab.n_tabled)) if tab is not None else None
+        X = None if tab is not None else np.zeros((R, self.large_idx.size), dtype=np.int64)
+        for i in range(R):
+            g, m = gens[i], int(ms[i])
+            if m <= 0:
+                continue
+            if self.large_idx.size == 0:
+                m_small = m
+            elif self.small_idx.size == 0:
+                m_small = 0
+            else:
+                m_small = int(g.binomial(m, self.small_share))
+            if m_small:
+                u = g.integers(0, self.small_total, m_small)
+                if self.small_singletons:
+                    out[i, self.small_idx] = np.bincount(u, minlength=self.small_idx.size)
+                else:
+                    out[i, self.small_idx] = np.bincount(self.small_rows[u],
+                                                         minlength=self.small_idx.size)
+            m_large[i] = m - m_small
+            if m_large[i]:
+                if tab is not None:
+                    g.random(out=U[i])
+                else:
+                    X[i] = g.poisson(m_large[i] * self.large_share)
+        if not m_large.any():
+            return
+        if tab is not None:  # Poisson(mass) per large cell: any Poisson means work
+            XT, tail = tab.lookup(U)
+            tails = [[] for _ in range(R)]
+            for f in tail.tolist():
+                tails[f // tab.n_tabled].append(f % tab.n_tabled)
+            if tab.all_tab:
+                X = XT
+            else:
+                X = np.empty((R, self.large_idx.size), dtype=np.int64)
+                X[:, tab.tab_idx] = XT
+        for i in np.flatnonzero(m_large).tolist():
+            g = gens[i]
+            x = X[i]
+            if tab is not None:
+                if tails[i]:
+                    if tab.all_tab:
+                        tab.fill_tail(g, x, tails[i])
+                    else:
+                        xt = x[tab.tab_idx]
+                        tab.fill_tail(g, xt, tails[i])
+                        x[tab.tab_idx] = xt
+                if not tab.all_tab:
+                    x[tab.other_idx] = g.poisson(tab.other_lam)
+            self._correct(g, x, int(m_large[i]))
+            out[i, self.large_idx] = x
+
+    def _correct(self, g, x, m):
+        """Poisson counts ``x`` (any common scale of the masses) -> Multinomial(m) in place."""
         s = int(x.sum())
         if s < m:  # add m - s rows drawn in proportion to the cells
             if self.integer:
                 u = g.integers(0, int(self.large_cum[-1]), m - s)
             else:
                 u = g.random(m - s) * self.large_cum[-1]
+            u.sort()  # sorted keys: the binary searches share their paths (same counts)
             j = np.minimum(np.searchsorted(self.large_cum, u, side="right"), x.shape[0] - 1)
             x += np.bincount(j, minlength=x.shape[0])
         elif s > m:  # remove a uniformly random s - m of the s drawn rows
-            pos = g.choice(s, size=s - m, replace=False)
+            pos = np.sort(g.choice(s, size=s - m, replace=False))
             j = np.searchsorted(np.cumsum(x), pos, side="right")
             x -= np.bincount(j, minlength=x.shape[0])
-        return x
 
     def to_cells(self, counts: np.ndarray):
         """Cell weight, squared weight and miss cost of drawn unit ``counts``."""
@@ -795,27 +861,38 @@ def _default_chunk(n_cells: int) -> int:
     return int(np.clip((1 << 18) // max(n_cells, 1), 1, 256))
 
 
-def _draw_replicate(eu: _Units, nu: _Units, design: str, seed: int, r: int, rows):
-    """Replicate r's cell weights (and squared weights, miss costs) from its own generator,
-    written into ``rows`` = (events, non_events, events_sq, non_events_sq, cost) rows."""
-    g = np.random.default_rng([int(seed), int(r)])
+def _draw_block(eu: _Units, nu: _Units, design: str, seed: int, r0: int, mats) -> None:
+    """Replicates r0, r0 + 1, ... into the rows of ``mats`` = (events, non_events, events_sq,
+    non_events_sq, cost) (R, C) blocks; replicate r draws from its own generator
+    ``default_rng([seed, r])`` only, in a fixed order (the cohort's event total, then
+    the events' cells, then the non-events' cells), so grouping changes nothing."""
+    E, N, Esq, Nsq, K = mats
+    R = E.shape[0]
+    gens = [np.random.default_rng([int(seed), int(r0 + i)]) for i in range(R)]
     if design == "cohort":  # the event total first: Binomial(n, P / n), then each class's cells
         total = eu.n_units + nu.n_units
-        m_ev = int(g.binomial(total, eu.total_mass / (eu.total_mass + nu.total_mass)))
+        p_ev = eu.total_mass / (eu.total_mass + nu.total_mass)
+        m_ev = np.array([int(g.binomial(total, p_ev)) for g in gens], dtype=np.int64)
         m_ne = total - m_ev
     else:
-        m_ev, m_ne = eu.n_units, nu.n_units
-    e_row, n_row, esq_row, nsq_row, cost_row = rows
-    for units, m, row, sq_row in ((eu, m_ev, e_row, esq_row), (nu, m_ne, n_row, nsq_row)):
-        if units.plain:
-            units.draw(g, m, out=row)
-            continue
-        w, sq, cost = units.to_cells(units.draw(g, m))
-        row[:] = w
-        if sq_row is not None:
-            sq_row[:] = sq
-        if cost_row is not None and cost is not None:
-            cost_row[:] = cost
+        m_ev = np.full(R, eu.n_units, dtype=np.int64)
+        m_ne = np.full(R, nu.n_units, dtype=np.int64)
+    if eu.plain and nu.plain:  # whole counts straight into the blocks, one table look-up each
+        eu.draw_rows(gens, m_ev, E)
+        nu.draw_rows(gens, m_ne, N)
+        return
+    for i, g in enumerate(gens):
+        for units, m, row, sq_row in ((eu, m_ev[i], E[i], None if Esq is None else Esq[i]),
+                                      (nu, m_ne[i], N[i], None if Nsq is None else Nsq[i])):
+            if units.plain:
+                units.draw(g, int(m), out=row)
+                continue
+            w, sq, cost = units.to_cells(units.draw(g, int(m)))
+            row[:] = w
+            if sq_row is not None:
+                sq_row[:] = sq
+            if K is not None and cost is not None:
+                K[i] = cost
 
 
 def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
@@ -825,10 +902,10 @@ def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, 
 
     Replicate r uses ``numpy.random.default_rng([seed, r])`` alone, so the
     replicates do not depend on ``chunk``, on ``start`` or on ``n_jobs``
-    (threads drawing the replicates of a chunk side by side; numpy's
-    generators release the GIL while they draw). ``progress(done, total)`` is
-    called after each chunk. See the module docstring for the draws and their
-    cost.
+    (``n_jobs > 1``: ``n_jobs - 1`` threads draw the next chunk, split between
+    them, while the caller works on the current one; numpy's generators and
+    array operations release the GIL). ``progress(done, total)`` is called
+    after each chunk. See the module docstring for the draws and their cost.
     """
     _check_design(design)
     n_rep = int(n_replicates)
@@ -843,38 +920,60 @@ def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, 
     eu, nu = cells._event_units, cells._nonevent_units
     # plain cells hold whole counts: int64 (exact, and cumulative sums run far faster)
     dtype = np.int64 if eu.plain and nu.plain else np.float64
-    pool = None
-    if int(n_jobs) > 1:
-        from concurrent.futures import ThreadPoolExecutor
+    track_sq, has_cost = eu.track_sq, eu.unit_cost is not None
 
-        pool = ThreadPoolExecutor(max_workers=int(n_jobs))
+    def alloc(R):
+        return (np.zeros((R, C), dtype=dtype), np.zeros((R, C), dtype=dtype),
+                np.zeros((R, C)) if track_sq else None, np.zeros((R, C)) if track_sq else None,
+                np.zeros((R, C)) if has_cost else None)
+
+    def part(mats, a, b):
+        return tuple(None if M is None else M[a:b] for M in mats)
+
+    def chunk_of(lo, hi, mats):
+        E, N, Esq, Nsq, K = mats
+        return ReplicateChunk(start=lo, stop=hi, events=E, non_events=N, events_sq=Esq,
+                              non_events_sq=Nsq, event_cost=K)
+
+    stop_all = start + n_rep
+    bounds = [(lo, min(lo + size, stop_all)) for lo in range(start, stop_all, size)]
+    workers = int(n_jobs) - 1
+    if workers < 1:
+        for lo, hi in bounds:
+            mats = alloc(hi - lo)
+            _draw_block(eu, nu, design, seed, lo, mats)
+            yield chunk_of(lo, hi, mats)
+            if progress is not None:
+                progress(hi - start, n_rep)
+        return
+
+    # worker threads draw the next chunk while the caller works on this one (numpy's
+    # generators and array operations release the GIL); each replicate still draws
+    # from its own generator, so the threads change nothing in the values
+    from concurrent.futures import ThreadPoolExecutor
+
+    pool = ThreadPoolExecutor(max_workers=workers)
+
+    def submit(lo, hi):
+        mats = alloc(hi - lo)
+        cuts = np.linspace(0, hi - lo, min(workers, hi - lo) + 1).astype(int).tolist()
+        futs = [pool.submit(_draw_block, eu, nu, design, seed, lo + a, part(mats, a, b))
+                for a, b in zip(cuts[:-1], cuts[1:])]
+        return lo, hi, mats, futs
+
     try:
-        stop_all = start + n_rep
-        for lo in range(start, stop_all, size):
-            hi = min(lo + size, stop_all)
-            R = hi - lo
-            E, N = np.zeros((R, C), dtype=dtype), np.zeros((R, C), dtype=dtype)
-            Esq = np.zeros((R, C)) if eu.track_sq else None
-            Nsq = np.zeros((R, C)) if eu.track_sq else None
-            K = np.zeros((R, C)) if eu.unit_cost is not None else None
-
-            def one(i):
-                _draw_replicate(eu, nu, design, seed, lo + i,
-                                (E[i], N[i], None if Esq is None else Esq[i],
-                                 None if Nsq is None else Nsq[i], None if K is None else K[i]))
-
-            if pool is None:
-                for i in range(R):
-                    one(i)
-            else:
-                list(pool.map(one, range(R)))
-            yield ReplicateChunk(start=lo, stop=hi, events=E, non_events=N, events_sq=Esq,
-                                 non_events_sq=Nsq, event_cost=K)
+        pending = submit(*bounds[0])
+        for k in range(len(bounds)):
+            lo, hi, mats, futs = pending
+            for f in futs:
+                f.result()
+            if k + 1 < len(bounds):
+                pending = submit(*bounds[k + 1])
+            yield chunk_of(lo, hi, mats)
             if progress is not None:
                 progress(hi - start, n_rep)
     finally:
-        if pool is not None:
-            pool.shutdown(wait=True)
+        pool.shutdown(wait=True, cancel_futures=True)
 
 
 # --------------------------------------------------------------------------- statistics
