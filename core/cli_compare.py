@@ -18,7 +18,7 @@ from pathlib import Path
 from core.bootstrap import DEFAULT_REPLICATES
 from core.errors import InputError
 
-__all__ = ["add_compare", "run_compare", "compare_mapping_from_args", "summary_lines"]
+__all__ = ["add_compare", "compare_mapping_from_args", "run_compare", "summary_lines"]
 
 _DESCRIPTION = """\
 Compare versions of a rare-event score on the same cases: did the change help, or does it just
@@ -220,9 +220,9 @@ def summary_lines(doc: dict, written=()) -> list[str]:
 
     d = doc["data"]
     c = doc["comparison"]
-    out = [f"Fulcrum {doc['software_version']}: {d.get('file_name') or 'data'} "
-           f"({fmt_count(d['rows'])} cases, {fmt_count(d['events'])} events, prevalence "
-           f"{fmt_pct(d['prevalence'], 2)}); fingerprint {d['sha256'][:16]}",
+    out = [(f"Fulcrum {doc['software_version']}: {d.get('file_name') or 'data'} "
+            f"({fmt_count(d['rows'])} cases, {fmt_count(d['events'])} events, prevalence "
+            f"{fmt_pct(d['prevalence'], 2)}); fingerprint {d['sha256'][:16]}"),
            f"Reference: {d['reference']}; candidate(s): {', '.join(d['candidates'])}", ""]
     out.append(f"  {'score':<24}{'direction':<20}{'ROC AUC (DeLong 95 % CI)':<30}avg precision")
     for name in c["models"]:
@@ -245,7 +245,7 @@ def summary_lines(doc: dict, written=()) -> list[str]:
     for p in c["pairs"]:
         out.append("")
         out.append(p["verdict_text"])
-    notes = [w for w in c["warnings"]]
+    notes = list(c["warnings"])
     if notes:
         out.append("")
         out += ["Note: " + w for w in notes]

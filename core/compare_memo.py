@@ -23,9 +23,20 @@ from pathlib import Path
 from core import cautions
 from core.memo_content import DASH, Block, fmt_count, fmt_num, fmt_pct, fmt_threshold
 
-__all__ = ["comparison_blocks", "comparison_summary_line", "compare_memo_blocks", "compare_title",
-           "compare_pdf", "compare_markdown", "write_compare_pdf", "write_compare_markdown",
-           "difference_rows", "disagreement_rows", "DIFFERENCE_HEADER", "DISAGREEMENT_HEADER"]
+__all__ = [
+    "DIFFERENCE_HEADER",
+    "DISAGREEMENT_HEADER",
+    "compare_markdown",
+    "compare_memo_blocks",
+    "compare_pdf",
+    "compare_title",
+    "comparison_blocks",
+    "comparison_summary_line",
+    "difference_rows",
+    "disagreement_rows",
+    "write_compare_markdown",
+    "write_compare_pdf",
+]
 
 #: Columns of :func:`difference_rows` and :func:`disagreement_rows` (the interval column's
 #: header names the confidence level where it is shown).
@@ -96,7 +107,7 @@ def difference_rows(pair: dict) -> list[tuple]:
     rows = []
     diffs = [pair["roc_auc_difference"], pair["average_precision"]]
     for kind in ("workload", "recall", "policy", "thresholds"):
-        for metric, d in pair["at"].get(kind, {}).items():
+        for d in pair["at"].get(kind, {}).values():
             if d.get("better") == "none":
                 continue
             diffs.append(d)

@@ -32,8 +32,13 @@ from core import cautions as _cautions
 from core.choose import json_safe
 from core.record import RecordError, digest, seal
 
-__all__ = ["SCHEMA", "COMPARE_KEYS", "build_compare_document", "check_compare_document",
-           "dumps_compare_document"]
+__all__ = [
+    "COMPARE_KEYS",
+    "SCHEMA",
+    "build_compare_document",
+    "check_compare_document",
+    "dumps_compare_document",
+]
 
 SCHEMA = "fulcrum.compare/1"
 
@@ -43,7 +48,7 @@ COMPARE_KEYS = ("schema", "created_utc", "software_version", "data", "policy", "
 
 
 def _utc_now() -> str:
-    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).strftime("%Y-%m-%dT%H:%M:%SZ")
+    return _dt.datetime.now(_dt.UTC).replace(microsecond=0).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
 def _data(comparison, dataset, sheet) -> dict:

@@ -61,7 +61,7 @@ def test_record_with_a_comparison_stays_valid_and_is_digested(made):
 
 
 def test_comparison_of_other_data_is_refused(made):
-    ds, a, comp, y, frame = made
+    _, _, comp, y, frame = made
     other = Dataset.from_arrays(y[::-1], frame[A].to_numpy(), extra_scores={B: frame[B].to_numpy()})
     other_analysis = analyse(other, Policy.from_dict(DEFAULT_POLICY), n_replicates=50)
     with pytest.raises(InputError, match="other data"):
@@ -69,7 +69,7 @@ def test_comparison_of_other_data_is_refused(made):
 
 
 def test_memo_gains_the_comparison_section(made):
-    ds, a, comp, y, frame = made
+    _, a, comp, _, _ = made
     rec = build_record(a, comparison=comp)
     md = memo_markdown(rec)
     assert "14\\. Comparison with other score versions" in md
@@ -83,7 +83,7 @@ def test_memo_gains_the_comparison_section(made):
 
 
 def test_section_blocks_carry_the_numbers_of_the_comparison(made):
-    ds, a, comp, y, frame = made
+    comp = made[2]
     d = comp.to_dict()
     blocks = comparison_blocks(d)
     tables = [b for b in blocks if b.kind == "table"]
