@@ -747,8 +747,18 @@ def _choice(a) -> dict:
     return json_safe(out)
 
 
+def _decided_only(ds):
+    """The dataset as the decision sees it: its own score, without extra score columns (those go
+    to the optional ``comparison`` key), so the record's mapping and fingerprint are those of
+    the decided score alone and a recheck needs no other score column."""
+    if ds.kind != "rows" or not ds.extra_scores:
+        return ds
+    m = dataclasses.replace(ds.mapping, extra_scores=(), extra_lower_is_riskier=())
+    return dataclasses.replace(ds, mapping=m, extra_scores={}).with_fingerprint()
+
+
 def _data(a) -> dict:
-    ds = a.dataset
+    ds = _decided_only(a.dataset)
     m = ds.mapping
     window = None
     if ds.kind == "rows" and ds.score_time is not None:
@@ -880,7 +890,9 @@ def build_record(analysis, *, memo_fields=None, supersedes: str | None = None,
     ``comparison`` (optional) is a :class:`core.compare.Comparison` of the
     dataset's score with its extra score columns (computed on the same
     dataset); it becomes the optional ``comparison`` key (covered by its own
-    digest in ``integrity.sections``) and the memo's comparison section.
+    digest in ``integrity.sections``) and the memo's comparison section. The
+    record's ``data`` (mapping, fingerprint) describe the decided score alone,
+    extra score columns left out.
     """
     from core import __version__
     from core.memo_fields import check_memo_fields
@@ -997,8 +1009,6 @@ def restore_decision(record: dict) -> RestoredDecision:
         mapping = Mapping.from_dict(record["data"]["mapping"])
     except (InputError, TypeError) as exc:
         raise RecordError("data.mapping", str(exc)) from None
-    if mapping.extra_scores:  # the decision is about its own score; new data need not hold the others
-        mapping = dataclasses.replace(mapping, extra_scores=(), extra_lower_is_riskier=())
     try:
         policy = Policy.from_dict(record["policy"]["as_written"])
     except InputError as exc:

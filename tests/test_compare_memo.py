@@ -25,7 +25,13 @@ from core.errors import InputError
 from core.memo_markdown import memo_markdown
 from core.memo_pdf import memo_pdf
 from core.policy import Policy
-from core.record import build_record, dumps_record, loads_record, restore_decision
+from core.record import (
+    build_record,
+    dumps_record,
+    loads_record,
+    restore_decision,
+    without_timestamps,
+)
 
 A, B = "mean radius", "worst concave points"
 
@@ -46,7 +52,15 @@ def test_record_with_a_comparison_stays_valid_and_is_digested(made):
     rec = build_record(a, comparison=comp)
     back = loads_record(dumps_record(rec))  # schema, types and integrity digests checked
     assert "comparison" in back["integrity"]["sections"]
-    assert back["comparison"]["data"]["fingerprint"] == back["data"]["sha256"] == ds.fingerprint
+    assert back["comparison"]["data"]["fingerprint"] == ds.fingerprint
+    # the record's data describe the decided score alone: the fingerprint of the same cases
+    # without the extra score, so a recheck or a restore needs no other score column
+    alone = Dataset.from_arrays(y, frame[A].to_numpy())
+    assert back["data"]["sha256"] == alone.fingerprint != ds.fingerprint
+    assert "extra_scores" not in back["data"]["mapping"]
+    assert without_timestamps(build_record(a, comparison=comp)) | {"comparison": None} == \
+        without_timestamps(build_record(analyse(alone, Policy.from_dict(DEFAULT_POLICY), seed=1,
+                                                n_replicates=60))) | {"comparison": None}
     # reference: scikit-learn's roc_auc_score on each score
     for col, s in (("y_score", frame[A]), (B, frame[B])):
         assert back["comparison"]["summaries"][col]["roc_auc"] == pytest.approx(
