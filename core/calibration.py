@@ -8,8 +8,10 @@ it wrong. For scores in [0, 1] with higher meaning riskier,
 * **Reliability curve** (:func:`reliability_curve`): the scores cut into
   bins -- ``"quantile"`` (equal counts: edges at the 0, 1/B, ..., 1 quantiles
   of the scores, ``numpy.percentile`` with linear interpolation as
-  scikit-learn's ``calibration_curve``; with weights or a count table the
-  weighted inverted-CDF quantiles) or ``"uniform"`` (B equal widths on
+  scikit-learn's ``calibration_curve``; whole-number frequency weights and
+  count tables count each unit as that many cases, so their edges are those
+  of the cases themselves; other weights take the weighted inverted-CDF
+  quantiles) or ``"uniform"`` (B equal widths on
   [0, 1]). A score on an inner edge belongs to the lower bin (ties stay
   together); empty bins are left out. Each bin has its rows, (weighted)
   cases and events, the mean score, the observed event rate and the Wilson
@@ -264,6 +266,40 @@ class ReliabilityCurve:
         return _json({f.name: getattr(self, f.name) for f in fields(self)})
 
 
+def _expanded_percentile(p, counts, q):
+    """``numpy.percentile(numpy.repeat(p, counts), q)`` (method "linear"), bit for bit, without
+    the repeat: each score counted as many times as its whole-number count.
+
+    numpy's rule (Hyndman & Fan's 7th): virtual index ``(n - 1) * q / 100`` in the sorted
+    cases, its two neighbours a, b and fraction g; ``a + (b - a) g``, or ``b - (b - a)(1 - g)``
+    when g >= 0.5. The order statistic j is the score whose running count first exceeds j.
+    """
+    order = np.argsort(p, kind="stable")
+    ps, cs = p[order], counts[order]
+    keep = cs > 0
+    ps, cs = ps[keep], cs[keep]
+    cum = np.cumsum(cs)  # whole numbers: exact below 2^53 in any order
+    n = int(cum[-1])
+    virt = (n - 1) * np.true_divide(q, 100)
+    prev = np.floor(virt)
+    nxt = prev + 1
+    above = virt >= n - 1
+    prev[above] = -1
+    nxt[above] = -1
+    below = virt < 0
+    prev[below] = 0
+    nxt[below] = 0
+    gamma = virt - prev
+
+    def at(j):
+        j = np.where(j < 0, n - 1, j)
+        return ps[np.minimum(np.searchsorted(cum, j, side="right"), ps.shape[0] - 1)]
+
+    a, b = at(prev), at(nxt)
+    diff = b - a
+    return np.where(gamma >= 0.5, b - diff * (1 - gamma), a + diff * gamma)
+
+
 def _edges(b: _Binomial, n_bins, strategy):
     if strategy == "uniform":
         return np.linspace(0.0, 1.0, n_bins + 1), "uniform: equal widths on [0, 1]"
@@ -271,6 +307,12 @@ def _edges(b: _Binomial, n_bins, strategy):
     if b.rows_unweighted:
         return np.percentile(b.p, q), "quantile: numpy.percentile (linear) of the scores"
     w = b.w
+    if b.sq is None and b.e_sq is None and np.all(w == np.round(w)) and 0 < w.sum() < 2.0**53:
+        # frequency weights or a count table in whole numbers: each unit stands for that many
+        # cases, so the edges are those of the cases themselves
+        return (_expanded_percentile(b.p, w, q),
+                "quantile: numpy.percentile (linear) of the scores, each line or weight counted "
+                "as that many cases")
     keep = w > 0
     return (np.percentile(b.p[keep], q, weights=w[keep], method="inverted_cdf"),
             "quantile: weighted inverted-CDF quantiles of the scores")
@@ -824,7 +866,11 @@ def calibration_report(dataset, *, bins: int = 10, strategy: str = "quantile",
                   "effective size after each set's design effect (never below 1).")
     if dataset.kind == "counts":
         st.append("Count table: each line's events and non-events are binomial counts at its "
-                  "score; quantile bins use weighted quantiles.")
+                  "score; quantile bins " + (
+                      "count each line as its cases (the rows' edges)"
+                      if np.all(dataset.events == np.round(dataset.events))
+                      and np.all(dataset.non_events == np.round(dataset.non_events))
+                      and dataset.events_sq is None else "use weighted quantiles") + ".")
     st.append("The cost-derived threshold on the Decide page is shown as meaningful only when "
               "the scores look calibrated" + (" -- they do." if overall.looks_calibrated else
                                                " -- they do not, so use the empirical optimum."))

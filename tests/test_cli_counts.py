@@ -150,20 +150,44 @@ def test_pick_on_rows_counts_and_reduction_agree_exactly(three_ways, capsys):
     assert d["data"]["reduction"]["rounding"] is None
 
 
-def test_calibration_on_a_count_table_matches_but_for_its_quantile_bins(three_ways, capsys):
-    # Common practice, no source: Brier score and logistic recalibration are sums over cases,
-    # so they agree to rounding; the quantile bin edges are computed differently (the rows:
-    # numpy.percentile, linear; a count table: weighted inverted-CDF quantiles), and say so.
-    tmp, _ = three_ways
+def test_calibration_on_a_count_table_matches_the_rows(three_ways, capsys):
+    # Brier score, O/E and logistic recalibration are sums over cases, so they agree to rounding;
+    # the quantile bins count each table line as its cases, so their edges are the rows'
+    # numpy.percentile edges exactly (reference: numpy.percentile, as scikit-learn's
+    # calibration_curve forms them).
+    tmp, df = three_ways
     (r, _, _), (c, _, _), _ = _records(tmp, capsys)
     ro, co = r["calibration"]["overall"], c["calibration"]["overall"]
-    for key in ("brier", "brier_prevalence", "scaled_brier", "mean_score", "expected"):
+    for key in ("brier", "brier_prevalence", "scaled_brier", "mean_score", "expected", "ece",
+                "oe_ratio"):
         _close(ro[key], co[key], key)
-    # the logistic fit is iterative (IRLS): the same optimum, to the solver's tolerance
+    # the logistic fit is iterative (Newton): the same optimum, to the solver's tolerance
     for key in ("intercept", "slope", "intercept_se", "slope_se"):
         assert co["fit"][key] == pytest.approx(ro["fit"][key], rel=1e-8), key
     assert co["looks_calibrated"] == ro["looks_calibrated"]
-    assert "inverted-CDF" in c["calibration"]["overall"]["reliability"]["edge_method"]
+    rr, cr = ro["reliability"], co["reliability"]
+    assert cr["edges"] == rr["edges"]
+    assert cr["edges"] == list(np.percentile(df["score"], np.linspace(0, 1, 11) * 100.0))
+    for key in ("rows", "cases", "events", "low", "high"):
+        _close(rr[key], cr[key], key)
+    for g_r, g_c in zip(r["calibration"]["groups"], c["calibration"]["groups"]):
+        assert g_r["reliability"]["edges"] == g_c["reliability"]["edges"]
+    assert "count each line as its cases" in " ".join(c["calibration"]["statements"])
+
+
+def test_expanded_percentile_is_numpy_percentile_of_the_repeated_scores():
+    # Reference: numpy.percentile (method "linear") of the scores repeated by their counts.
+    from core.calibration import _expanded_percentile
+
+    rng = np.random.default_rng(0)
+    for _ in range(500):
+        k = int(rng.integers(1, 40))
+        p = np.round(rng.random(k), int(rng.integers(1, 5)))
+        c = rng.integers(0, 7, k).astype(float)
+        c[0] += 1
+        q = np.linspace(0, 1, int(rng.integers(2, 15))) * 100.0
+        want = np.percentile(np.repeat(p, c.astype(int)), q)
+        assert np.array_equal(_expanded_percentile(p, c, q), want)
 
 
 def test_event_cost_column_is_the_policys_false_negative_column(three_ways, tmp_path, capsys):
@@ -554,3 +578,20 @@ def test_sampling_weights_with_squared_sums(tmp_path, capsys):
         assert df_[key] == pytest.approx(rf[key], rel=1e-8)
     for key in ("intercept_se", "slope_se"):
         assert df_[key] == pytest.approx(rf[key], rel=1e-3)
+
+
+def test_whole_frequency_weights_bin_like_the_repeated_rows():
+    # Common practice, no source: a frequency weight w stands for w identical rows; reference:
+    # the same reliability curve on the repeated rows (numpy.percentile edges).
+    from core.calibration import reliability_curve
+
+    rng = np.random.default_rng(4)
+    n = 900
+    p = np.round(rng.random(n), 2)
+    y = rng.random(n) < p
+    w = rng.integers(1, 5, n).astype(float)
+    a = reliability_curve(y, p, w, n_bins=8, weight_kind="frequency")
+    b = reliability_curve(np.repeat(y, w.astype(int)), np.repeat(p, w.astype(int)), n_bins=8)
+    assert np.array_equal(a.edges, b.edges)
+    np.testing.assert_array_equal(a.cases, b.rows)
+    np.testing.assert_allclose(a.observed, b.observed, rtol=1e-12)
