@@ -126,12 +126,24 @@ _WORD_BYTES = 32
 _FEW = 8
 
 
-def _first_rows(codes: np.ndarray) -> np.ndarray:
-    """Row of each code's first appearance, for codes numbered in order of first appearance."""
+#: Odd multipliers of the 64-bit mixes (speed only: every grouping is checked exactly).
+_MIX = (np.uint64(0x9E3779B97F4A7C15), np.uint64(0xBF58476D1CE4E5B9))
+
+
+def _first_rows(codes: np.ndarray, k: int | None = None) -> np.ndarray:
+    """Row of each code's first appearance, for codes numbered in order of first appearance.
+
+    With ``k`` (the number of codes) given, a short head of the rows is
+    searched first: few codes usually all appear there.
+    """
     if codes.size == 0:
         return np.empty(0, dtype=np.int64)
-    top = np.maximum.accumulate(codes)
-    new = np.empty(codes.shape[0], dtype=bool)
+    sizes = (4096, codes.shape[0]) if k is not None and codes.shape[0] > 4096 else (codes.shape[0],)
+    for size in sizes:
+        top = np.maximum.accumulate(codes[:size])
+        if k is None or top[-1] == k - 1 or size == codes.shape[0]:
+            break
+    new = np.empty(top.shape[0], dtype=bool)
     new[0] = True
     np.greater(top[1:], top[:-1], out=new[1:])
     return np.flatnonzero(new)
@@ -148,25 +160,58 @@ def _group_keys(key: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
     Exact for any keys; only the speed depends on the route. Few distinct
     keys (judged on an even sample): a hash table (``pandas.factorize``),
-    cache-resident. Many: one SIMD argsort of the keys, runs of equal keys,
-    each run's first row by ``minimum.reduceat`` and the runs renumbered by
-    first row -- random access into a large hash table costs more than the sort.
+    cache-resident. Many: random access into a large hash table costs more
+    than a SIMD sort, so the keys are sorted (:func:`_sorted_groups`).
     """
     n = key.shape[0]
     step = max(1, n // 65536)
     sample = key[::step]
     if n < 4096 or _n_distinct(sample) * _FEW <= sample.shape[0]:
-        codes, _ = pd.factorize(key, sort=False)
+        codes, uniques = pd.factorize(key, sort=False)
         codes = np.asarray(codes, dtype=np.int64)
-        return codes, _first_rows(codes)
+        return codes, _first_rows(codes, len(uniques))
+    return _sorted_groups(key)
+
+
+def _sorted_groups(key: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`_group_keys` by sorting: runs of equal keys, renumbered by their first row.
+
+    One plain sort of 64-bit words (high bits: a hash of the key; low bits:
+    the row) brings each key's rows together in row order, so a run's first
+    row is its first appearance; every run is then checked to hold one key
+    (two keys sharing the hash bits would show there) and, if one does not,
+    the rows are grouped by an argsort of the keys themselves instead.
+    """
+    n = key.shape[0]
+    row_bits = max(1, int(n - 1).bit_length())
+    if row_bits <= 32:
+        mask = np.uint64((1 << row_bits) - 1)
+        h = key * _MIX[0]
+        h ^= h >> np.uint64(29)
+        h *= _MIX[1]
+        h &= ~mask
+        h |= np.arange(n, dtype=np.uint64)
+        h.sort()
+        rows = (h & mask).astype(np.int64)
+        h >>= np.uint64(row_bits)
+        same_hash = h[1:] == h[:-1]
+        del h
+        ks = key[rows]
+        # equal keys have equal hashes, so the runs are right unless some equal hashes hide unequal keys
+        if np.count_nonzero(ks[1:] == ks[:-1]) == np.count_nonzero(same_hash):
+            return _number_runs(rows, np.flatnonzero(~same_hash), n, first_is_min=True)
     order = np.argsort(key)
     ks = key[order]
-    brk = np.flatnonzero(ks[1:] != ks[:-1])
-    del ks
-    starts = np.empty(brk.shape[0] + 1, dtype=np.int64)
+    return _number_runs(order, np.flatnonzero(ks[1:] != ks[:-1]), n, first_is_min=False)
+
+
+def _number_runs(order: np.ndarray, breaks: np.ndarray, n: int, *, first_is_min: bool):
+    """Codes by first appearance from rows ``order`` grouped in runs ending at ``breaks``."""
+    starts = np.empty(breaks.shape[0] + 1, dtype=np.int64)
     starts[0] = 0
-    np.add(brk, 1, out=starts[1:])
-    first = np.minimum.reduceat(order, starts)  # each run's first row
+    np.add(breaks, 1, out=starts[1:])
+    # each run's first row (the rows of a run are in row order when first_is_min)
+    first = order[starts] if first_is_min else np.minimum.reduceat(order, starts)
     rank = np.argsort(first)  # runs in order of first appearance
     code_of_run = np.empty(rank.shape[0], dtype=np.int64)
     code_of_run[rank] = np.arange(rank.shape[0], dtype=np.int64)
@@ -216,10 +261,10 @@ def _string_groups(arr) -> tuple[np.ndarray, np.ndarray] | None:
         wj = at[starts + 8 * j] if j else at[starts]
         wj &= _LOW_BYTES[np.clip(lengths - 8 * j, 0, 8)]
         words.append(wj)
-    key = length_code.astype(np.uint64) * np.uint64(0x9E3779B97F4A7C15)
+    key = length_code.astype(np.uint64) * _MIX[0]
     for wj in words:
         key ^= wj
-        key *= np.uint64(0xBF58476D1CE4E5B9)
+        key *= _MIX[1]
         key ^= key >> np.uint64(31)
     codes, first = _group_keys(key)
     rep = first[codes]

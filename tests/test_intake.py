@@ -990,6 +990,20 @@ def test_text_codes_survive_a_hash_collision(monkeypatch):
     assert fp._string_groups(pa.array(rows, type=pa.large_string())) is None
 
 
+def test_sorted_grouping_survives_shared_hash_bits(monkeypatch):
+    # Many short ids are grouped by one sort of (hash bits, row); runs are checked to hold one id.
+    # With the mix zeroed every row shares its hash bits: the check must catch it and group by
+    # the ids themselves.
+    import core.fingerprint as fp
+
+    rng = np.random.default_rng(2)
+    rows = [f"P{i}" for i in rng.integers(100_000, 104_000, 30_000)]
+    want_codes, want_texts = _reference_codes(rows)
+    monkeypatch.setattr(fp, "_MIX", (np.uint64(0), np.uint64(0)))
+    codes, texts = fp.text_codes(pd.Series(rows, dtype="str"))
+    assert codes.tolist() == want_codes and texts.tolist() == want_texts
+
+
 def test_integer_ids_match_their_text():
     from core.fingerprint import text_codes
 
