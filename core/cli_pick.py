@@ -247,6 +247,19 @@ def summary_lines(record: dict, written=()) -> list[str]:
            f"({fmt_count(d['rows'])} cases, {fmt_count(d['events'])} events, prevalence "
            f"{pct(d['prevalence'])}); fingerprint {d['sha256'][:16]}",
            ""]
+    red = d.get("reduction")
+    if red:
+        rnd = red.get("rounding")
+        line = (f"Counted by {red['engine']}: {fmt_count(red['rows_read'])} rows into "
+                f"{fmt_count(red['table_rows'])} count-table rows")
+        if rnd:
+            def n(v):
+                return fmt_num(v, 0 if float(v).is_integer() else 2)
+            line += (f"; scores rounded {'down' if rnd['direction'] == 'floor' else 'up'} to "
+                     f"{rnd['decimals']} decimal{'' if rnd['decimals'] == 1 else 's'} (exact on "
+                     f"that grid; between grid values up to {n(rnd['max_events_off_grid'])} "
+                     f"events and {n(rnd['max_non_events_off_grid'])} non-events fewer flagged)")
+        out[-1:-1] = [line]
     t = record["threshold"]
     if t in ("inf", "-inf"):
         out.append(f"Threshold: {fmt_threshold(t)}  [{record['threshold_origin']}]")

@@ -259,7 +259,7 @@ def test_dyadic_weights_and_direction_agree_exactly(tmp_path, capsys, lower):
 def test_reduce_rounds_and_the_memo_states_its_largest_effect(three_ways, tmp_path, capsys):
     tmp, df = three_ways
     out_pdf = tmp_path / "m.pdf"
-    rec, md, _ = _pick([str(tmp / "rows.parquet"), "--reduce", "--decimals", "1", "--score",
+    rec, md, out = _pick([str(tmp / "rows.parquet"), "--reduce", "--decimals", "1", "--score",
                         "score", "--label", "outcome", "--memo", str(out_pdf)], tmp_path, "d1",
                        capsys)
     assert out_pdf.read_bytes()[:5] == b"%PDF-"
@@ -272,6 +272,9 @@ def test_reduce_rounds_and_the_memo_states_its_largest_effect(three_ways, tmp_pa
     ev_off = df.loc[off & (df["outcome"] == 1)].groupby(cell[off & (df["outcome"] == 1)]).size()
     assert rnd["max_events_off_grid"] == ev_off.max()
     assert "Scores were rounded down to 1 decimal" in md.replace("\\", "")
+    assert (f"6,000 rows into {rec['data']['reduction']['table_rows']} count-table rows; scores "
+            f"rounded down to 1 decimal (exact on that grid; between grid values up to "
+            f"{ev_off.max()} events") in out.out
     assert f"{ev_off.max():,} fewer events" in md.replace("\\", "")
     # at a grid threshold the rounded table gives the rows' counts exactly
     rows = load_dataset(tmp / "rows.csv", Mapping(score="score", label="outcome", positive_label=1))
