@@ -35,24 +35,26 @@ def example_dataset():
 
 
 def key(dataset, policy: Policy | None, *, bootstrap: bool, n_replicates: int = 0, seed: int = 0,
-        flag_rate: float | None = None) -> tuple:
+        flag_rate: float | None = None, thresholds: dict | None = None) -> tuple:
     return (dataset.fingerprint, None if policy is None else dumps_policy(policy),
-            None if flag_rate is None else float(flag_rate), bool(bootstrap),
-            int(n_replicates) if bootstrap else 0, int(seed) if bootstrap else 0)
+            None if flag_rate is None else float(flag_rate),
+            None if not thresholds else tuple(sorted((k, float(v)) for k, v in thresholds.items())),
+            bool(bootstrap), int(n_replicates) if bootstrap else 0, int(seed) if bootstrap else 0)
 
 
 def cached(dataset, policy: Policy | None, *, n_replicates: int, seed: int,
-           flag_rate: float | None = None) -> Comparison | None:
+           flag_rate: float | None = None, thresholds: dict | None = None) -> Comparison | None:
     """The bootstrapped comparison if it was computed already (None otherwise)."""
     return _CACHE.get(key(dataset, policy, bootstrap=True, n_replicates=n_replicates, seed=seed,
-                          flag_rate=flag_rate))
+                          flag_rate=flag_rate, thresholds=thresholds))
 
 
 def comparison(dataset, policy: Policy | None, *, bootstrap: bool = False, n_replicates: int = 2000,
-               seed: int = 0, flag_rate: float | None = None, progress=None) -> Comparison:
+               seed: int = 0, flag_rate: float | None = None, thresholds: dict | None = None,
+               progress=None) -> Comparison:
     """:func:`core.compare.compare_mapped` of ``dataset``, computed once per key."""
     k = key(dataset, policy, bootstrap=bootstrap, n_replicates=n_replicates, seed=seed,
-            flag_rate=flag_rate)
+            flag_rate=flag_rate, thresholds=thresholds)
     return _CACHE.get_or_compute(k, lambda: compare_mapped(
         dataset, policy=policy, bootstrap=bootstrap, n_replicates=max(int(n_replicates), 1),
-        seed=int(seed), flag_rate=flag_rate, progress=progress))
+        seed=int(seed), flag_rate=flag_rate, thresholds=thresholds or None, progress=progress))

@@ -161,3 +161,26 @@ def test_memo_page_adds_the_comparison_section(example):
     want = compare_mapped(example, policy=policy, seed=0, n_replicates=REPS).to_dict()
     assert record["comparison"] == json.loads(json.dumps(want))
     assert "comparison" in record["integrity"]["sections"]
+
+
+def test_given_thresholds_show_the_accuracy_trap(example):
+    at = compare_page()
+    at.button(key="compare_example").click().run()
+    at.checkbox(key="compare_use_thresholds").check().run()
+    at.number_input(key="compare_t_current_score").set_value(0.05).run()
+    at.number_input(key="compare_t_retrained_score").set_value(0.05).run()
+    assert not at.exception, at.exception
+    t = {"current_score": 0.05, "retrained_score": 0.05}
+    comp = compare_mapped(example, bootstrap=False, thresholds=t)
+    assert comp.own_points == "thresholds"
+    pair = comp.pair("retrained_score")
+    assert pair.accuracy_trap and pair.accuracy_trap_text in [w.value for w in at.warning]
+    acc = at.dataframe[-1].value
+    assert list(acc["Accuracy"]) == [fmt.pct(r["accuracy"], 2) for r in comp.accuracy_table]
+    assert list(acc["Recall"]) == [fmt.pct(r["recall"]) for r in comp.accuracy_table]
+    # by hand with numpy (common practice, no source): accuracy and recall at score >= 0.05
+    for name, row in zip(("current_score", "retrained_score"), comp.accuracy_table):
+        s = example.y_score if name == "current_score" else example.extra_scores[name]
+        flags = s >= 0.05
+        assert row["accuracy"] == pytest.approx((flags == example.y_true).mean(), abs=1e-15)
+        assert row["recall"] == pytest.approx(flags[example.y_true].mean(), abs=1e-15)

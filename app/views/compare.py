@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import numpy as np
 import pandas as pd
 import streamlit as st
 
@@ -75,6 +76,25 @@ def _signed(d, x) -> str:
     return f"{x:+.4g}"
 
 
+def _thresholds_form(ds) -> dict | None:
+    """Each score's given threshold (e.g. the one in production), when the user asks for it."""
+    if not st.checkbox("Also compare at each score's given threshold (e.g. the one in production)",
+                       key=K + "use_thresholds"):
+        return None
+    names = [ds.mapping.score, *ds.extra_scores]
+    arrays = {ds.mapping.score: ds.y_score, **ds.extra_scores}
+    hir = {ds.mapping.score: ds.higher_is_riskier, **ds.extra_higher_is_riskier}
+    out = {}
+    for col, name in zip(st.columns(len(names)), names):
+        # a start that flags about as many cases as there are events
+        q = 1.0 - ds.prevalence if hir[name] else ds.prevalence
+        start = float(f"{float(np.quantile(arrays[name], q)):.4g}")
+        op = "≥" if hir[name] else "≤"
+        out[name] = float(col.number_input(f"Flag '{name}' when score {op}", value=start,
+                                           format="%.6g", key=K + "t_" + name))
+    return out
+
+
 def _tiles(comp, pair) -> None:
     items = [("ROC AUC difference", pair.roc_auc_difference),
              ("Average precision difference", pair.average_precision),
@@ -131,7 +151,7 @@ def _accuracy_table(comp) -> pd.DataFrame:
                          for r in comp.accuracy_table])
 
 
-def _bootstrap_section(ds, policy, flag_rate) -> None:
+def _bootstrap_section(ds, policy, opts: dict) -> None:
     st.subheader("Paired bootstrap")
     st.caption("Cases are resampled jointly for every score (events and non-events separately), so "
                "the intervals of average precision and of the operating-point differences account "
@@ -140,7 +160,7 @@ def _bootstrap_section(ds, policy, flag_rate) -> None:
     n = int(c1.number_input("Replicates", min_value=50, max_value=20000, value=DEFAULT_REPLICATES,
                             step=100, key=K + "reps"))
     seed = int(c2.number_input("Seed", min_value=0, value=0, step=1, key=K + "seed"))
-    if comparison.cached(ds, policy, n_replicates=n, seed=seed, flag_rate=flag_rate) is not None:
+    if comparison.cached(ds, policy, n_replicates=n, seed=seed, **opts) is not None:
         c3.success(f"Intervals from {n:,} paired replicates (seed {seed}) are shown above.")
         return
     if c3.button("Run the paired bootstrap", key=K + "run_boot", type="primary"):
@@ -152,7 +172,7 @@ def _bootstrap_section(ds, policy, flag_rate) -> None:
 
         try:
             comparison.comparison(ds, policy, bootstrap=True, n_replicates=n, seed=seed,
-                                  flag_rate=flag_rate, progress=progress)
+                                  progress=progress, **opts)
         except InputError as exc:
             st.error(str(exc))
             return
@@ -180,13 +200,15 @@ def render() -> None:
         q_pct = st.number_input("Common workload: share of cases flagged, % (0: the reference's flag "
                                 "rate at its own point, else the prevalence)", min_value=0.0,
                                 max_value=100.0, value=0.0, step=0.1, key=K + "flag_rate")
+        thresholds = _thresholds_form(ds)
     flag_rate = None if q_pct <= 0 else q_pct / 100.0
     n = int(ss.get(K + "reps", DEFAULT_REPLICATES))
     seed = int(ss.get(K + "seed", 0))
+    opts = {"flag_rate": flag_rate, "thresholds": thresholds}
     try:
-        comp = comparison.cached(ds, policy, n_replicates=n, seed=seed, flag_rate=flag_rate)
+        comp = comparison.cached(ds, policy, n_replicates=n, seed=seed, **opts)
         if comp is None:
-            comp = comparison.comparison(ds, policy, bootstrap=False, flag_rate=flag_rate)
+            comp = comparison.comparison(ds, policy, bootstrap=False, **opts)
     except InputError as exc:
         st.error(str(exc))
         st.caption("Set each score's direction on the Scores page (lower score = higher risk).")
@@ -241,17 +263,18 @@ def render() -> None:
         st.warning(pair.accuracy_trap_text)
     st.caption(cautions.ACCURACY_TRAP)
 
-    _bootstrap_section(ds, policy, flag_rate)
+    _bootstrap_section(ds, policy, opts)
 
     st.subheader("Export")
     created = ss.setdefault(K + "created", {})
     ck = comparison.key(ds, policy, bootstrap=comp.bootstrap is not None,
-                        n_replicates=n, seed=seed, flag_rate=flag_rate)
+                        n_replicates=n, seed=seed, **opts)
     doc = build_compare_document(
         comp, ds, policy=policy, created_utc=created.get(ck),
         settings={"seed": seed if comp.bootstrap else None,
                   "replicates": n if comp.bootstrap else 0, "confidence": comp.confidence,
-                  "flag_rate": flag_rate, "recall": None, "thresholds": None, "calibrated": False})
+                  "flag_rate": flag_rate, "recall": None, "thresholds": thresholds,
+                  "calibrated": False})
     created[ck] = doc["created_utc"]
     e1, e2 = st.columns(2)
     e1.download_button("Comparison (JSON)", dumps_compare_document(doc), file_name="comparison.json",
