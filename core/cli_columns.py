@@ -22,28 +22,36 @@ import sys
 
 from core.errors import InputError
 
-__all__ = ["add_counts_arguments", "check_counts_exclusive", "counts_mapping_from_args",
-           "add_reduce_arguments", "check_reduce_options", "reduce_from_args",
-           "reduce_progress_printer", "COUNTS_CLASHES", "COUNTS_COLUMNS"]
+__all__ = [
+    "COUNTS_CLASHES",
+    "COUNTS_COLUMNS",
+    "add_counts_arguments",
+    "add_reduce_arguments",
+    "check_counts_exclusive",
+    "check_reduce_options",
+    "counts_mapping_from_args",
+    "reduce_from_args",
+    "reduce_progress_printer",
+]
 
 #: option dest -> (option as typed, why a count table cannot take it)
 COUNTS_CLASHES = {
-    "label": ("--label", "a count table has no label column; its --events and --non-events "
-                         "columns hold the counts"),
-    "positive": ("--positive", "a count table has no label values; its --events column holds "
-                               "the events"),
-    "weight": ("--weight", "a count table's --events and --non-events already hold the weight "
+    "label": ("--label", ("a count table has no label column; its --events and --non-events "
+                         "columns hold the counts")),
+    "positive": ("--positive", ("a count table has no label values; its --events column holds "
+                               "the events")),
+    "weight": ("--weight", ("a count table's --events and --non-events already hold the weight "
                            "sums; give the squared-weight sums with --events-sq / --non-events-sq "
-                           "for sampling weights"),
+                           "for sampling weights")),
     "weight_kind": ("--weight-kind", "a count table has no weight column"),
-    "case_cost": ("--case-cost", "a count table has no per-case miss costs; give the events' "
-                                 "summed miss cost per table row with --event-cost"),
+    "case_cost": ("--case-cost", ("a count table has no per-case miss costs; give the events' "
+                                 "summed miss cost per table row with --event-cost")),
     "cluster": ("--cluster", "a count table has no case ids; clusters need the rows"),
-    "score_time": ("--score-time", "a count table has no score times; capacity over time needs "
-                                   "the rows"),
+    "score_time": ("--score-time", ("a count table has no score times; capacity over time needs "
+                                   "the rows")),
     "outcome_time": ("--outcome-time", "a count table has no outcome times; they need the rows"),
-    "outcome_horizon_days": ("--outcome-horizon-days", "a count table has no outcome times; the "
-                                                       "horizon needs the rows"),
+    "outcome_horizon_days": ("--outcome-horizon-days", ("a count table has no outcome times; the "
+                                                       "horizon needs the rows")),
 }
 
 #: option dest -> option as typed, for the count-table columns

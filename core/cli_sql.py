@@ -18,7 +18,7 @@ import sys
 
 from core.errors import InputError
 
-__all__ = ["add_sql", "run_sql", "sql_from_args", "positive_value", "load_hint"]
+__all__ = ["add_sql", "load_hint", "positive_value", "run_sql", "sql_from_args"]
 
 _DESCRIPTION = """\
 Print the one SQL statement (SELECT ... GROUP BY) that reduces TABLE, a table of scored cases (one

@@ -22,7 +22,11 @@ import pytest
 from sklearn.metrics import confusion_matrix
 
 from core.cli import build_parser, main
-from core.cli_columns import check_counts_exclusive, counts_mapping_from_args, reduce_progress_printer
+from core.cli_columns import (
+    check_counts_exclusive,
+    counts_mapping_from_args,
+    reduce_progress_printer,
+)
 from core.dataset import Mapping
 from core.errors import InputError
 from core.intake import load_count_table, load_dataset
@@ -120,7 +124,7 @@ def _records(tmp, capsys, extra_rows=(), extra_counts=(), policy=None):
 
 def test_pick_on_rows_counts_and_reduction_agree_exactly(three_ways, capsys):
     tmp, df = three_ways
-    (r, r_md, r_out), (c, c_md, _), (d, d_md, _) = _records(tmp, capsys)
+    (r, r_md, _), (c, c_md, _), (d, d_md, _) = _records(tmp, capsys)
     assert r["data"]["kind"] == "rows" and c["data"]["kind"] == d["data"]["kind"] == "counts"
     for key in EXACT:
         assert c[key] == r[key], key
@@ -397,7 +401,7 @@ def test_recheck_on_counts_and_reduction_gives_the_rows_verdicts(three_ways, tmp
     tmp, _ = three_ways
     pol = tmp_path / "rule.toml"
     pol.write_text('[objective]\nkind = "max_youden"\n[rules]\nmin_recall = 0.6\n', encoding="utf-8")
-    r, _, _ = _pick([str(tmp / "rows.csv"), "--score", "score", "--label", "outcome", "--group",
+    _pick([str(tmp / "rows.csv"), "--score", "score", "--label", "outcome", "--group",
                      "site", "--policy", str(pol)], tmp_path, "dec", capsys)
     rec_path = tmp_path / "dec.json"
     outs = {}
@@ -417,7 +421,7 @@ def test_recheck_on_counts_and_reduction_gives_the_rows_verdicts(three_ways, tmp
         assert outs[name]["groups"]["compared"] == outs["rows"]["groups"]["compared"], name
     assert outs["counts"]["data"]["kind"] == "counts"
     # a record made on a reduction rechecks a new row file with --reduce and no column options
-    d, _, _ = _pick([str(tmp / "rows.parquet"), "--reduce", "--score", "score", "--label",
+    _pick([str(tmp / "rows.parquet"), "--reduce", "--score", "score", "--label",
                      "outcome", "--group", "site", "--policy", str(pol)], tmp_path, "decr", capsys)
     code = main(["recheck", str(tmp / "rows.parquet"), "--reduce", "--record",
                  str(tmp_path / "decr.json"), "--as-of", "2027-01-01", "--replicates", REPS])
