@@ -184,3 +184,16 @@ def test_given_thresholds_show_the_accuracy_trap(example):
         flags = s >= 0.05
         assert row["accuracy"] == pytest.approx((flags == example.y_true).mean(), abs=1e-15)
         assert row["recall"] == pytest.approx(flags[example.y_true].mean(), abs=1e-15)
+
+
+def test_exports_the_comparison_document_and_the_memo():
+    at = compare_page()
+    at.button(key="compare_example").click().run()
+    labels = [b.label for b in at.get("download_button")]
+    assert "Comparison (JSON)" in labels and "Comparison memo (Markdown)" in labels
+    assert "Comparison memo (PDF)" not in labels
+    at.button(key="compare_build_pdf").click().run()
+    assert not at.exception, at.exception
+    _, pdf = at.session_state["compare_pdf"]
+    assert pdf[:5] == b"%PDF-"
+    assert "Comparison memo (PDF)" in [b.label for b in at.get("download_button")]

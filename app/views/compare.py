@@ -24,6 +24,13 @@ from core.errors import InputError
 from core.policy import Policy, PolicyError
 
 K = "compare_"
+PDF = K + "pdf"  # (document sha256, PDF bytes) of the last comparison memo built
+
+
+def _build_pdf(doc: dict) -> None:
+    from core.compare_memo import compare_pdf
+
+    st.session_state[PDF] = (doc["integrity"]["sha256"], compare_pdf(doc))
 
 
 def _policy(ds) -> Policy | None:
@@ -276,11 +283,19 @@ def render() -> None:
                   "flag_rate": flag_rate, "recall": None, "thresholds": thresholds,
                   "calibrated": False})
     created[ck] = doc["created_utc"]
-    e1, e2 = st.columns(2)
+    e1, e2, e3 = st.columns(3)
     e1.download_button("Comparison (JSON)", dumps_compare_document(doc), file_name="comparison.json",
                        mime="application/json", key=K + "dl_json")
     e2.download_button("Comparison memo (Markdown)", compare_markdown(doc),
                        file_name="comparison_memo.md", mime="text/markdown", key=K + "dl_md")
+    sha = doc["integrity"]["sha256"]
+    built = ss.get(PDF)
+    if built is not None and built[0] == sha:
+        e3.download_button("Comparison memo (PDF)", built[1], file_name="comparison_memo.pdf",
+                           mime="application/pdf", key=K + "dl_pdf", type="primary")
+    else:
+        e3.button("Build the PDF memo", key=K + "build_pdf", on_click=_build_pdf, args=(doc,),
+                  help="Lays out the comparison memo (a second or so).")
     st.caption("The Memo page adds this comparison to the threshold memo while these data are "
                "active.")
     st.info(cautions.FULL, icon="⚠")
