@@ -191,7 +191,7 @@ def comparison_blocks(comp: dict, *, heading: str = "Comparison of score version
         add(Block("table", header=("Comparison", "Reference", "Candidate", "Difference",
                                    f"{level} interval", "Settled", "Method"),
                   rows=tuple(difference_rows(pair)),
-                  widths=(0.22, 0.1, 0.1, 0.11, 0.17, 0.12, 0.18)))
+                  widths=(0.2, 0.115, 0.115, 0.11, 0.16, 0.12, 0.18)))
         own = comp["own_points"]
         dis = pair["disagreement"].get(own)
         if dis:
