@@ -234,8 +234,9 @@ def compare_memo_blocks(doc: dict) -> list[Block]:
     ]
     b += [Block("p", p["verdict_text"]) for p in comp["pairs"]]
     b.append(Block("caution", doc["cautions"]["full"]))
-    if doc["cautions"].get("few_events"):
-        b.append(Block("caution", doc["cautions"]["few_events"]))
+    for extra in ("few_events", "label_shift"):
+        if doc["cautions"].get(extra):
+            b.append(Block("caution", doc["cautions"][extra]))
     b.append(Block("pagebreak"))
     b += comparison_blocks(comp, heading="1. The comparison")
     b.append(Block("h1", "2. Data, policy and settings"))

@@ -100,7 +100,8 @@ def build_compare_document(comparison, dataset, *, policy=None, settings: dict |
         "comparison": comparison.to_dict(),
         "cautions": {"full": _cautions.FULL, "short": _cautions.SHORT,
                      "accuracy": _cautions.ACCURACY_TRAP,
-                     "few_events": _cautions.FEW_EVENTS if few else None},
+                     "few_events": _cautions.FEW_EVENTS if few else None,
+                     "label_shift": None if policy is None else _cautions.LABEL_SHIFT},
     }
     return seal(json_safe(doc))
 

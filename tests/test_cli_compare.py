@@ -128,6 +128,7 @@ def test_in_process_memo_markdown_and_policy(wdbc, tmp_path, capsys):
     text = md.read_text(encoding="utf-8")
     assert "Fulcrum is decision support for qualified reviewers" in text  # the brief's cautions
     assert "Accuracy misleads when events are rare" in text
+    assert "Deployment figures assume label shift" in text  # a policy judges cost at its prevalence
     assert "McNemar" in text and "DeLong" in text
     assert "MARK" not in text and "MARK" not in out.read_text()
     assert "Wrote the memo" in capsys.readouterr().out
