@@ -56,14 +56,28 @@ def make_data(n_rows: int, rounded: bool, seed: int = 0, prevalence: float = 0.0
     return y, s
 
 
-def _best(fn, repeats):
+def _best(fn, repeats, cpu=None):
+    """Best wall time of ``repeats`` runs (and the CPU time of this process in that run,
+    appended to ``cpu`` when given: on a loaded machine it moves less than wall time)."""
     best = np.inf
+    best_cpu = np.inf
     out = None
     for _ in range(repeats):
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         out = fn()
-        best = min(best, time.perf_counter() - t0)
+        t, c = time.perf_counter() - t0, time.process_time() - c0
+        if t < best:
+            best, best_cpu = t, c
+    if cpu is not None:
+        cpu.append(best_cpu)
     return best, out
+
+
+def _load() -> str:
+    try:
+        return f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} CPUs"
+    except OSError:  # pragma: no cover - platform without getloadavg
+        return "load unknown"
 
 
 def evidence_pass(curve, policy, n_replicates, *, n_jobs=1, seed=0):
@@ -101,7 +115,9 @@ def bench_bootstrap(n_rows: int = 1_000_000, n_replicates: int = 2000, *, repeat
         y, s = make_data(n_rows, rounded)
         c = sweep(y, s)
         cells = event_cells(c)
-        t1, (res, stab) = _best(lambda: evidence_pass(c, POLICY, n_replicates, n_jobs=1), repeats)
+        cpu1 = []
+        t1, (res, stab) = _best(lambda: evidence_pass(c, POLICY, n_replicates, n_jobs=1), repeats,
+                                cpu1)
         tj = t1
         if jobs > 1:
             tj, (res_j, stab_j) = _best(lambda: evidence_pass(c, POLICY, n_replicates, n_jobs=jobs),
@@ -116,12 +132,14 @@ def bench_bootstrap(n_rows: int = 1_000_000, n_replicates: int = 2000, *, repeat
             "name": f"bootstrap+stability {n_rows / 1e6:g}M "
                     f"{'4 decimals' if rounded else 'continuous'}, {n_replicates:,} replicates",
             "fulcrum_s": t, "fulcrum_1_thread_s": t1, f"fulcrum_{jobs}_threads_s": tj,
+            "fulcrum_1_thread_cpu_s": cpu1[0], "load": _load(),
             "reference_s": ref, "ratio": ratio,
             "cells": cells.n_cells, "event_cells": cells.n_event_cells,
             "ms_per_replicate": 1000 * t / n_replicates,
             "note": f"reference: row resampling + sklearn roc_curve and precision_recall_curve, "
                     f"{n_timed} replicates timed ({per:.3f} s each) and scaled; no choice per "
-                    "replicate in the reference",
+                    f"replicate in the reference; one thread {t1:.2f} s wall, {cpu1[0]:.2f} s "
+                    f"CPU; {jobs} threads {tj:.2f} s; {_load()}",
             "goal": f"< {GOAL_SECONDS:g} s and >= {GOAL_RATIO:g}x",
             "met": bool(t < GOAL_SECONDS and ratio >= GOAL_RATIO),
         })

@@ -26,7 +26,10 @@ held at its full-data value rather than resampled: a capacity-quantile rule
 (flags per period from score times: its limit on the threshold is the one
 found on the full data) and cases per period taken from the data.
 
-Cost: O(cells) per replicate on top of the draws.
+Cost: O(cells) per replicate on top of the draws, and less with a recall or
+specificity floor: the candidates that fail such a floor in every replicate
+of a chunk (found by one binary search per replicate on its cumulative
+counts) are never evaluated, which changes no choice.
 """
 
 from __future__ import annotations
@@ -108,8 +111,8 @@ class ReplicateChooser:
         sel = self._window(tp, fp, P[:, 0], N[:, 0], degenerate)
         if sel is not None:
             cc = cc[sel]
-        t = tp[:, cc]
-        f = fp[:, cc]
+        t = np.take(tp, cc, axis=1)  # np.take: several times faster than tp[:, cc]
+        f = np.take(fp, cc, axis=1)
         with np.errstate(invalid="ignore", divide="ignore"):
             tpr = t / P
             fpr = f / N
@@ -119,7 +122,7 @@ class ReplicateChooser:
         ok = np.empty(t.shape, dtype=bool)
         ok[:, 0] = True
         if events is not None:
-            np.greater(events[:, cc[1:] - 1], 0, out=ok[:, 1:])
+            np.greater(np.take(events, cc[1:] - 1, axis=1), 0, out=ok[:, 1:])
         else:
             ok[:, 1:] = True
         if self.sampling and sq is not None:

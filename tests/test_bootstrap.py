@@ -365,3 +365,80 @@ def test_bad_input_is_refused():
     with pytest.raises(InputError, match="costs"):
         bootstrap(sweep(y, s), n_replicates=5, thresholds=[0.5],
                   costs={"false_positive": 1.0, "false_negative": None})
+
+
+# --------------------------------------------------------------------------- Poisson tables
+
+@pytest.mark.parametrize("pads", [{}, {"pad_sd": 0.5, "pad": 0}])
+def test_poisson_table_draws_follow_the_poisson_distribution(pads):
+    # Source: scipy.stats.poisson (reference library) -- chi-square goodness of fit of each
+    # cell's counts, p > 0.001; scipy.special.pdtr for the table itself. Tiny pads send
+    # about a third of the draws beyond the table (the exact tail path).
+    from core.bootstrap import _PoissonTable
+
+    lam = np.array([600, 5, 40, 1, 3000, 40, 12])
+    table = _PoissonTable(lam, **pads)
+    if not pads:
+        for c in range(lam.size):
+            lo, top = table.cell_foff[c], table.cell_top[c]
+            F = table.F[lo:top]
+            np.testing.assert_allclose(F, stats.poisson.cdf(np.arange(F.size), lam[c]),
+                                       rtol=0, atol=1e-13)
+    g = np.random.default_rng(4)
+    n = 8000
+    draws = np.vstack([table.draw(g) for _ in range(n)])  # beyond-table cells included
+    for c, v in enumerate(lam):
+        k = np.arange(0, int(v + 8 * np.sqrt(v) + 10))
+        obs = np.bincount(draws[:, c], minlength=k.size)[:k.size]
+        exp = stats.poisson.pmf(k, v) * n
+        keep = exp >= 5
+        o, e = obs[keep], exp[keep]
+        # pool the rest into one class so the totals agree
+        o = np.r_[o, n - o.sum()]
+        e = np.r_[e, n - e.sum()]
+        assert stats.chisquare(o, e).pvalue > 1e-3, v
+        assert abs(draws[:, c].mean() - v) <= 4 * np.sqrt(v / n)
+
+
+def test_unit_sampler_with_unsorted_large_cells_and_untabled_masses(monkeypatch):
+    # Source: multinomial moments (common practice, no source). Large cells out of mass
+    # order, masses above the table cap and a table budget that leaves some masses out
+    # (drawn by numpy's Poisson) must give the same multinomial.
+    import sys
+
+    cbm = sys.modules["core.bootstrap"]  # the module (core.bootstrap is also a function)
+    monkeypatch.setattr(cbm, "TABLE_MAX_MASS", 500)
+    monkeypatch.setattr(cbm, "TABLE_BUDGET", 200)
+    mass = np.array([600, 1, 40, 5, 200, 3, 9000, 40, 7], dtype=float)
+    u = _Units(mass, mass.size)
+    assert u.table is not None and u.table.other_idx.size >= 2  # mixed tables and Poisson
+    m = int(mass.sum())
+    draws = np.array([u.draw(np.random.default_rng([3, r]), m) for r in range(6000)])
+    assert np.all(draws.sum(axis=1) == m)
+    p = mass / mass.sum()
+    assert np.all(np.abs(draws.mean(0) - m * p) <= 4 * np.sqrt(m * p * (1 - p) / 6000))
+    np.testing.assert_allclose(draws.var(0), m * p * (1 - p), rtol=0.1)
+
+
+def test_rows_drawn_together_equal_rows_drawn_alone():
+    # Source: common practice, no source -- each row uses its own generator in the same
+    # order whether drawn alone or with others (chunks, threads).
+    mass = np.array([1, 1, 2, 9, 40, 200, 600, 3, 1], dtype=float)
+    u = _Units(mass, mass.size)
+    ms = [int(mass.sum()) + d for d in (-30, 0, 17, 5)]
+    alone = np.array([u.draw(np.random.default_rng([8, r]), m) for r, m in enumerate(ms)])
+    together = np.zeros((len(ms), mass.size), dtype=np.int64)
+    u.draw_rows([np.random.default_rng([8, r]) for r in range(len(ms))], ms, together)
+    np.testing.assert_array_equal(together, alone)
+    assert np.array_equal(together.sum(axis=1), ms)
+
+
+def test_more_threads_change_nothing_either():
+    # Source: common practice, no source -- replicate r uses default_rng([seed, r]) alone.
+    y, s = _small(6, n=3000, decimals=2)
+    cells = event_cells(sweep(y, s))
+    one = np.vstack([ch.non_events for ch in bootstrap_counts(cells, 37, seed=4, chunk=6)])
+    for jobs in (2, 3):
+        got = np.vstack([ch.non_events for ch in bootstrap_counts(cells, 37, seed=4, chunk=6,
+                                                                  n_jobs=jobs)])
+        np.testing.assert_array_equal(got, one)

@@ -219,3 +219,41 @@ def test_wilson_rule_edge_equals_evaluating_every_column(monkeypatch, window, ri
         want = value_met & (lo >= floor)
         got = value_met & stab._wilson_bound_met(rate, n, 0.9, floor, value_met, rising=rising)
         np.testing.assert_array_equal(got, want)
+
+
+WINDOW_POLICIES = {
+    "recall_floor": Policy(objective=Objective("max_precision"), rules=Rules(min_recall=0.8)),
+    "recall_floor_conf": Policy(objective=Objective("max_fbeta", beta=1.0),
+                                rules=Rules(min_recall=0.9, confidence=0.95)),
+    "recall_one": Policy(objective=Objective("max_precision"), rules=Rules(min_recall=1.0)),
+    "specificity_floor": Policy(objective=Objective("max_recall"),
+                                rules=Rules(min_specificity=0.97)),
+    "both": Policy(objective=Objective("min_cost"),
+                   costs=Costs(false_positive=1.0, false_negative=40.0),
+                   rules=Rules(min_recall=0.5, min_specificity=0.9, confidence=0.9)),
+    "tight": Policy(objective=Objective("max_youden"),
+                    rules=Rules(min_recall=0.95, min_specificity=0.95)),
+}
+
+
+@pytest.mark.parametrize("name", list(WINDOW_POLICIES))
+@pytest.mark.parametrize("decimals", [None, 2])
+def test_candidate_window_changes_no_choice(monkeypatch, name, decimals):
+    # Source: the same chooser evaluating every candidate (itself checked against
+    # core.choose.choose above) -- the window only skips candidates no replicate can use.
+    y, s = _data(7, n=4000, prevalence=0.05, decimals=decimals)
+    c = sweep(y, s)
+    cells = event_cells(c)
+    chooser = ReplicateChooser(cells, WINDOW_POLICIES[name], c)
+    got, full = [], []
+    for ch in bootstrap_counts(cells, 150, 3, chunk=50):
+        tp, fp = ch.cumulative()
+        got.append(chooser.choose(tp, fp, events=ch.events))
+        with monkeypatch.context() as m:
+            m.setattr(ReplicateChooser, "_window", lambda self, *a: None)
+            full.append(chooser.choose(tp, fp, events=ch.events))
+    got, full = np.concatenate(got), np.concatenate(full)
+    np.testing.assert_array_equal(got, full)
+    sel = chooser._window(tp, fp, tp[:, -1], fp[:, -1], np.zeros(tp.shape[0], dtype=bool))
+    if name in ("recall_floor", "specificity_floor", "tight"):
+        assert sel is not None and sel.size < chooser.cand_cols.size  # the window is used
