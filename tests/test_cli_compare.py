@@ -41,6 +41,7 @@ def wdbc(tmp_path_factory):
     df = bc.frame[[A, B, "mean texture"]].copy()
     df["diagnosis"] = np.where(bc.target == 0, "malignant", "benign")
     df["minus radius"] = -df[A]
+    df["radius again"] = df[A]
     df["case_id"] = [f"ZQX{i:05d}MARK" for i in range(len(df))]  # never mapped, never written
     path = tmp_path_factory.mktemp("wdbc") / "wdbc.csv"
     df.to_csv(path, index=False)
@@ -202,3 +203,21 @@ def test_the_committed_example_equals_its_generator():
     spec.loader.exec_module(mod)
     committed = gzip.decompress((ROOT / "sample_data" / mod.FILE).read_bytes())
     assert committed == mod.render(), "sample_data/model_versions.csv.gz differs; rerun the script"
+
+
+def test_identical_columns_give_zero_differences_with_intervals_around_zero(wdbc, tmp_path):
+    # common practice, no source: a score compared with itself differs by exactly nothing
+    path, _ = wdbc
+    out = tmp_path / "same.json"
+    assert main(["compare", str(path), "--score", A, "--score", "radius again", "--label",
+                 "diagnosis", "--positive", "malignant", "--replicates", "100",
+                 "--out", str(out)]) == 0
+    comp = json.loads(out.read_text())["comparison"]
+    assert comp["relations"][0]["kind"] == "identical"
+    assert any("exactly the same values" in w for w in comp["warnings"])
+    pair = comp["pairs"][0]
+    for d in (pair["roc_auc_difference"], pair["average_precision"],
+              pair["at"]["workload"]["recall"]):
+        assert d["difference"] == 0.0
+        assert d["low"] is None or d["low"] <= 0.0 <= d["high"]
+    assert pair["verdict"] == "no clear difference"
