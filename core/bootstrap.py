@@ -201,10 +201,11 @@ class _PoissonTable:
         ld = np.longdouble
         v = vals[kv].astype(ld)
         # log P(X = x) = -v + sum_{k<=x} log(v / k): small terms summed in extended precision
-        step = np.log(v)[seg] - np.log(np.maximum(x, 1).astype(ld))
+        logk = np.log(np.arange(1, int(sizes.max()) + 1 if kv.size else 2, dtype=ld))
+        step = np.log(v)[seg] - logk[np.maximum(x, 1) - 1]
         step[foff] = 0.0
-        logp = _segment_cumsum(step, foff, seg) - v[seg]
-        pmf = np.exp(logp)
+        logp = (_segment_cumsum(step, foff, seg) - v[seg]).astype(np.float64)
+        pmf = np.exp(logp).astype(ld)
         top = foff + sizes - 1  # the sentinel's position
         pmf[top] = 0.0
         F = _segment_cumsum(pmf, foff, seg).astype(np.float64)
