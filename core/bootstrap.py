@@ -229,6 +229,7 @@ class _PoissonTable:
         self.cell_goff = goff[seg]
         self.cell_foff = foff[seg]
         self.cell_top = top[seg]
+        self.cell_past = self.cell_top - self.cell_foff  # K + 1: the count past the table
         self.cell_lam = lam[tab].astype(np.float64)
         self.all_tab = self.other_idx.size == 0
 
@@ -272,7 +273,7 @@ class _PoissonTable:
         X -= self.cell_foff
         tail = np.zeros(0, dtype=np.intp)
         if moved.size:  # only a cell that moved past its guide can reach the sentinel
-            tail = moved[fi[moved] == self.cell_top[moved % k] - self.cell_foff[moved % k]]
+            tail = moved[fi[moved] == self.cell_past[moved % k]]
         return X, tail
 
     def fill_tail(self, g: np.random.Generator, x: np.ndarray, cols) -> None:
