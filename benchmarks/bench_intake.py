@@ -97,12 +97,12 @@ def bench_csv_load(n_rows: int = 1_000_000, repeats: int = 5) -> dict:
     ``pandas_c_s``, ``pandas_fastest_engine``, ``pandas_fastest_s``,
     ``read_table_s`` (Fulcrum's read of every column), for each mapping
     ``load_<name>_s`` and ``ratio_<name>`` (load time over the fastest pandas
-    read), ``ratio`` (the ``core`` mapping's), ``goal``, ``met`` (the ``core``
-    and ``group`` ratios within the goal) and ``met_full`` (the ``full``
-    ratio within it). The ``full`` mapping hashes a million patient ids to
-    count rows per cluster (the large-cluster check) and to encode them for
-    the fingerprint; that grouping alone costs about as much as the parse,
-    so it is reported beside the goal rather than folded into it.
+    read), ``ratio`` (the ``core`` mapping's), ``goal``, ``met`` (every
+    mapping's ratio within the goal) and ``met_full`` (the ``full`` ratio
+    within it). The ``full`` mapping groups a million patient ids (300,000
+    distinct) for the large-cluster check and the fingerprint, builds the
+    Dataset's text array of them and hashes their codes: work pandas' read
+    does not do, single-threaded after the (multi-threaded) parse.
     """
     data = make_csv(n_rows)
     candidates = {
@@ -132,7 +132,7 @@ def bench_csv_load(n_rows: int = 1_000_000, repeats: int = 5) -> dict:
         out[f"ratio_{name}"] = t[f"load_{name}"] / t_fast
     out["ratio"] = out["ratio_core"]
     out["goal"] = GOAL
-    out["met"] = bool(out["ratio_core"] <= GOAL and out["ratio_group"] <= GOAL)
+    out["met"] = bool(all(out[f"ratio_{name}"] <= GOAL for name in MAPPINGS))
     out["met_full"] = bool(out["ratio_full"] <= GOAL)
     return out
 
