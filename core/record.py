@@ -278,6 +278,76 @@ def _walk(obj, spec, path: str, source):
         raise RecordError(path, f"must be {what}, got {_kind(obj)}", source=source)
 
 
+def _count_ok(v) -> bool:
+    return _is_num(v) and math.isfinite(v) and v >= 0
+
+
+def _check_parts(record: dict, source) -> None:
+    """The nested parts a recheck reads: counts, resolved policy, rules, groups, score bins.
+
+    A record written by Fulcrum always passes; one whose content was rebuilt
+    by hand (and resealed) is refused here, naming the field, rather than
+    failing later inside the recheck.
+    """
+    def bad(path, what, v):
+        raise RecordError(path, f"must be {what}, got {_kind(v)}", source=source)
+
+    for k in ("tp", "fp", "fn", "tn"):
+        if not _count_ok(record["counts"][k]):
+            bad(f"counts.{k}", "a number >= 0", record["counts"][k])
+    resolved = record["policy"]["resolved"]
+    for section, entries in resolved.items():
+        if not isinstance(entries, dict):
+            bad(f"policy.resolved.{section}", "an object", entries)
+        for key, e in entries.items():
+            path = f"policy.resolved.{section}.{key}"
+            if not isinstance(e, dict) or "value" not in e:
+                bad(path, 'an object with a "value"', e)
+            if section == "rules" and not _is_num(e["value"]):
+                bad(path + ".value", "a number", e["value"])
+    choice = record.get("choice")
+    if choice is not None:
+        if not isinstance(choice, dict):
+            bad("choice", "an object", choice)
+        rules = choice.get("rules", [])
+        if not isinstance(rules, list):
+            bad("choice.rules", "a list", rules)
+        for i, r in enumerate(rules):
+            if not isinstance(r, dict) or not isinstance(r.get("name"), str):
+                bad(f"choice.rules[{i}]", 'an object with a text "name"', r)
+            if not _num_or_null(r.get("margin")):
+                bad(f"choice.rules[{i}].margin", "a number or null", r.get("margin"))
+    rows = record["groups"].get("rows", [])
+    if not isinstance(rows, list):
+        bad("groups.rows", "a list", rows)
+    for i, r in enumerate(rows):
+        path = f"groups.rows[{i}]"
+        if not isinstance(r, dict) or not isinstance(r.get("column"), str) or "group" not in r:
+            bad(path, 'an object with a text "column" and a "group"', r)
+        if "columns" in r and not _CHECKS["text_list"][0](r["columns"]):
+            bad(path + ".columns", "a list of text", r["columns"])
+        for k in ("tp", "fp", "fn", "tn"):
+            if not _count_ok(r.get(k)):
+                bad(f"{path}.{k}", "a number >= 0", r.get(k))
+        values = r.get("values") or {}
+        if not isinstance(values, dict) or not all(isinstance(v, dict) or v is None
+                                                   for v in values.values()):
+            bad(path + ".values", "an object of objects", values)
+    bins = record["reference"]["score_bins"]
+    for k in ("events", "non_events"):
+        if not all(_count_ok(v) for v in bins[k]):
+            bad(f"reference.score_bins.{k}", "a list of numbers >= 0", bins[k])
+    if not all(_num_or_inf(v) for v in bins["edges"]):
+        bad("reference.score_bins.edges", 'a list of numbers ("inf" / "-inf" at the ends)',
+            bins["edges"])
+    cal = record["reference"].get("calibration")
+    if cal is not None and not isinstance(cal, dict):
+        bad("reference.calibration", "an object", cal)
+    overall = record["calibration"].get("overall")
+    if overall is not None and not isinstance(overall, dict):
+        bad("calibration.overall", "an object or null", overall)
+
+
 def _kind(v) -> str:
     if v is None:
         return "null"
@@ -316,6 +386,7 @@ def check_record(record, *, source: str | None = None, verify: bool = True) -> d
         if key not in record:
             raise RecordError(key, "is missing", source=source)
     _walk(record, _SPEC, "", source)
+    _check_parts(record, source)
     if record["threshold_origin"] not in ORIGINS:
         raise RecordError("threshold_origin", f"is {record['threshold_origin']!r}; must be one of "
                           f"{', '.join(ORIGINS)}", source=source)
