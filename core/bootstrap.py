@@ -151,8 +151,9 @@ def _check_design(design: str) -> str:
 
 #: Whole-count cells up to this mass get an inversion table; larger ones use numpy's Poisson.
 TABLE_MAX_MASS = 1 << 13
-#: At most this many table entries per class (cells of the most frequent masses first).
-TABLE_BUDGET = 1 << 21
+#: At most this many table entries per class (cells of the most frequent masses first):
+#: 8 bytes of distribution function and 16 of guide each, so at most 24 MB per class.
+TABLE_BUDGET = 1 << 20
 
 
 class _PoissonTable:
