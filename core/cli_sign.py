@@ -16,7 +16,15 @@ from pathlib import Path
 
 from core.errors import InputError
 
-__all__ = ["add_sign", "add_verify", "run_sign", "run_verify", "verify_paths"]
+__all__ = [
+    "add_sign",
+    "add_signature_arguments",
+    "add_verify",
+    "run_sign",
+    "run_verify",
+    "signature_from_args",
+    "verify_paths",
+]
 
 _SIGN_DESCRIPTION = """\
 Sign a decision record (or a recheck record) with an Ed25519 private key and write a detached
@@ -72,8 +80,13 @@ def _password(name: str | None) -> bytes | None:
 
 def run_sign(args) -> int:
     """Run ``fulcrum sign``."""
-    from core.signing import (default_signature_path, dumps_signature, load_private_key,
-                              load_signed_record, sign_record)
+    from core.signing import (
+        default_signature_path,
+        dumps_signature,
+        load_private_key,
+        load_signed_record,
+        sign_record,
+    )
 
     key = load_private_key(args.key, password=_password(args.password_env))
     record = load_signed_record(args.record)
@@ -89,8 +102,13 @@ def run_sign(args) -> int:
 
 def verify_paths(record_path, public_key_path, signature_path=None):
     """The :class:`~core.signing.Verification` of files (InputError when one cannot be read)."""
-    from core.signing import (default_signature_path, load_public_key, load_signed_record,
-                              loads_signature, verify_record)
+    from core.signing import (
+        default_signature_path,
+        load_public_key,
+        load_signed_record,
+        loads_signature,
+        verify_record,
+    )
 
     key = load_public_key(public_key_path)
     sig_path = Path(signature_path) if signature_path else default_signature_path(record_path)
@@ -107,3 +125,27 @@ def run_verify(args) -> int:
     result = verify_paths(args.record, args.public_key, args.signature)
     print(result.line())
     return 0 if result.valid else 1
+
+
+def add_signature_arguments(group) -> None:
+    """``--public-key PUB.pem [--signature SIG]`` on another command (``fulcrum recheck``)."""
+    group.add_argument("--public-key", metavar="PUB.pem",
+                       help="check the decision record's signature with this Ed25519 public key "
+                            "first (refused with exit 2 when it is not valid)")
+    group.add_argument("--signature", metavar="SIG",
+                       help="the record's signature file (default RECORD.sig); needs --public-key")
+
+
+def signature_from_args(args, record_path):
+    """The valid :class:`~core.signing.Verification` the options ask for, or None.
+
+    Raises InputError (exit 2) when the signature is not valid, naming why.
+    """
+    if args.public_key is None:
+        if args.signature is not None:
+            raise InputError("--signature", "needs --public-key (the signer's public key)")
+        return None
+    result = verify_paths(record_path, args.public_key, args.signature)
+    if not result.valid:
+        raise InputError("--public-key", f"the decision record's {result.line()}")
+    return result

@@ -346,6 +346,13 @@ def _check_parts(record: dict, source) -> None:
     overall = record["calibration"].get("overall")
     if overall is not None and not isinstance(overall, dict):
         bad("calibration.overall", "an object or null", overall)
+    an = record.get("analysis")
+    if an is not None:
+        if not isinstance(an, dict):
+            bad("analysis", "an object", an)
+        for key, (check, what) in _ANALYSIS_SETTINGS.items():
+            if key in an and not check(an[key]):
+                bad(f"analysis.{key}", what, an[key])
 
 
 def _kind(v) -> str:

@@ -62,20 +62,20 @@ from pathlib import Path
 from core.errors import InputError
 
 __all__ = [
-    "SIGNATURE_SCHEMA",
     "ALGORITHM",
+    "SIGNATURE_SCHEMA",
     "SignatureError",
     "Verification",
+    "default_signature_path",
+    "dumps_signature",
     "key_fingerprint",
     "load_private_key",
     "load_public_key",
-    "signed_message",
-    "sign_record",
-    "dumps_signature",
-    "loads_signature",
-    "verify_record",
     "load_signed_record",
-    "default_signature_path",
+    "loads_signature",
+    "sign_record",
+    "signed_message",
+    "verify_record",
 ]
 
 SIGNATURE_SCHEMA = "fulcrum.signature/1"
@@ -221,7 +221,7 @@ def signed_message(record: dict) -> bytes:
 
 
 def _utc_now() -> str:
-    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+    return _dt.datetime.now(_dt.UTC).replace(microsecond=0).isoformat().replace("+00:00", "Z")
 
 
 def sign_record(record: dict, private_key, *, signed_utc: str | None = None) -> dict:
@@ -335,9 +335,9 @@ def verify_record(record: dict, signature: dict, public_key) -> Verification:
     integ = record.get("integrity") if isinstance(record, dict) else None
     rec_sha = integ.get("sha256") if isinstance(integ, dict) else None
     body_sha = digest({k: v for k, v in record.items() if k != "integrity"})
-    common = dict(key_fingerprint=fp, signed_key_fingerprint=signature["key_fingerprint"],
-                  record_sha256=str(rec_sha), signed_record_sha256=signature["record_sha256"],
-                  signed_utc=signature["signed_utc"])
+    common = {"key_fingerprint": fp, "signed_key_fingerprint": signature["key_fingerprint"],
+              "record_sha256": str(rec_sha), "signed_record_sha256": signature["record_sha256"],
+              "signed_utc": signature["signed_utc"]}
     problems = []
     try:
         public_key.verify(base64.b64decode(signature["signature"]), signed_message(record))

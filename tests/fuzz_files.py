@@ -43,7 +43,7 @@ import numpy as np
 
 from core.reading import MISSING_TEXT
 
-__all__ = ["KINDS", "FuzzFile", "make_file", "check_outcome"]
+__all__ = ["KINDS", "FuzzFile", "check_outcome", "make_file"]
 
 SCORE, LABEL = "score", "label"
 
@@ -199,7 +199,7 @@ def _broken_cells(rng: random.Random, f: FuzzFile) -> None:
     rows = sorted(rng.sample(range(n), k))
     # the broken cells' neighbours hold both classes so the label is not refused for that
     labels[0] = True
-    labels[-1] = False if n > 1 else True
+    labels[-1] = not n > 1
     lab = _label_texts(labels, rng)
     column = SCORE
     if what == "missing":

@@ -42,8 +42,10 @@ def _run(argv) -> tuple[int, str, str]:
     return code, out.getvalue(), err.getvalue()
 
 
-def _write_keys(folder: Path, name: str = "key") -> tuple[Path, Path, Ed25519PrivateKey]:
-    key = Ed25519PrivateKey.generate()
+def _write_keys(folder: Path, name: str = "key", seed: bytes | None = None):
+    """(private key path, public key path, key); a new random key unless ``seed`` fixes one."""
+    key = (Ed25519PrivateKey.generate() if seed is None else
+           Ed25519PrivateKey.from_private_bytes(hashlib.sha256(seed).digest()))
     priv = folder / f"{name}.pem"
     pub = folder / f"{name}.pub.pem"
     priv.write_bytes(key.private_bytes(serialization.Encoding.PEM, serialization.PrivateFormat.PKCS8,
@@ -117,7 +119,7 @@ def _edit_one_value(section_value):
             if isinstance(v[k], (int, float, str, bool)) or v[k] is None:
                 v[k] = "edited" if not isinstance(v[k], str) else v[k] + " edited"
                 return v
-        k = sorted(v)[0]
+        k = min(v)
         v[k] = _edit_one_value(v[k])
         return v
     if isinstance(v, list):
@@ -147,7 +149,7 @@ def test_each_edited_section_is_named_by_load_and_by_verify(record_path, keys, t
         msg = str(info.value)
         # the schema check names the field inside the section, or the digest names the section
         assert f"field {section}" in msg or f"section {section} " in msg, (section, msg)
-        code, out, err = _run(["verify", rec, "--public-key", pub])
+        code, out, _err = _run(["verify", rec, "--public-key", pub])
         assert code == 1 and out.startswith("signature: NOT VALID") and section in out, (section, out)
 
 
@@ -206,7 +208,7 @@ def test_bad_inputs_exit_2_with_one_line(record_path, keys, tmp_path):
         (["verify", rec, "--public-key", pub], "no signature file"),
     ]
     for argv, words in cases:
-        code, out, err = _run(argv)
+        code, _out, err = _run(argv)
         lines = err.splitlines()
         assert code == 2 and len(lines) == 1 and words in lines[0], (argv, err)
     assert _run(["sign", rec, "--key", priv])[0] == 0
@@ -282,10 +284,15 @@ N_SIG_FUZZ = 400
 
 
 def test_fuzz_signature_files(record_path, tmp_path_factory, capsys):
+    from core.record import dumps_record, seal
+
     folder = tmp_path_factory.mktemp("sigfuzz")
-    priv, pub, _ = _write_keys(folder)
+    # a fixed key and a fixed creation time: the same signature, so the same figure, every run
+    priv, pub, _ = _write_keys(folder, seed=b"fuzz signature files")
     rec = folder / "r.json"
-    shutil.copy(record_path, rec)
+    record = json.loads(Path(record_path).read_text())
+    record["created_utc"] = "2026-01-01T00:00:00Z"
+    rec.write_text(dumps_record(seal(record)))
     assert _run(["sign", rec, "--key", priv])[0] == 0
     good = json.loads(Path(str(rec) + ".sig").read_text())
     tally: Counter = Counter()
@@ -313,7 +320,7 @@ def test_fuzz_signature_files(record_path, tmp_path_factory, capsys):
                     data[rng.randrange(len(data))] = rng.getrandbits(8)
         sig = folder / "fuzz.sig"
         sig.write_bytes(bytes(data))
-        code, out, err = _run(["verify", rec, "--public-key", pub, "--signature", sig])
+        code, _out, err = _run(["verify", rec, "--public-key", pub, "--signature", sig])
         assert code in (0, 1, 2), (seed, err)
         if code == 2:
             assert len(err.splitlines()) == 1 and err.startswith("fulcrum: "), (seed, err)
