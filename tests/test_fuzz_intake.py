@@ -382,3 +382,50 @@ def test_fuzz_decision_records(real_record, small_dataset, capsys):
            f"data, every resealed one included; {tally['loaded, refused on use']:,} loaded and "
            f"refused by name when used; {tally['refused']:,} refused naming the field or the "
            f"changed section)", tried=tried, held=tried, rechecked=rechecks["n"], **dict(tally))
+
+
+N_RECHECK_UPLOADS = 30
+
+
+def test_fuzz_record_uploads_on_the_recheck_page(real_record, small_dataset, capsys):
+    """Fuzzed decision records uploaded on the Recheck page: the message, never an exception.
+
+    The new data are an upload of the record's own columns, so a record that
+    loads is rechecked on the page.
+    """
+    import pandas as pd
+    from streamlit.testing.v1 import AppTest
+
+    from tests.fuzz_files import record_file
+
+    m = real_record["data"]["mapping"]
+    new = pd.DataFrame({m["score"]: small_dataset.y_score, m["label"]: small_dataset.y_true.astype(int),
+                        "site": small_dataset.groups["site"]}).to_csv(index=False).encode()
+    at = AppTest.from_file(APP, default_timeout=180)
+    at.run()
+    at.switch_page("views/recheck.py").run()
+    assert not at.exception
+    tally: Counter = Counter()
+    for seed in range(N_RECHECK_UPLOADS):
+        data, how, _ = record_file(30_000 + seed, real_record)
+        at.file_uploader(key="recheck_record_file").set_value(("record.json", data, "application/json"))
+        at.run()
+        if "recheck_data_source" in {w.key for w in at.radio}:
+            at.radio(key="recheck_data_source").set_value("Upload a file").run()
+            at.file_uploader(key="recheck_data_file").set_value(("new.csv", new, "text/csv")).run()
+        assert not at.exception, (seed, how, at.exception)
+        shown = [e.value for e in at.error]
+        assert all(s.strip() and "Traceback" not in s for s in shown), (seed, shown)
+        done = False
+        if not shown and "fulcrum_recheck_record" in at.session_state:
+            import json
+
+            sha = json.loads(data)["integrity"]["sha256"]
+            done = at.session_state["fulcrum_recheck_record"]["decision_record"]["sha256"] == sha
+        tally["message" if shown else ("rechecked" if done else "accepted")] += 1
+    assert tally["message"] > 0
+    report(capsys, "fuzz_recheck_uploads",
+           f"fuzz decision-record uploads (Recheck page, AppTest): {N_RECHECK_UPLOADS} tried, "
+           f"{N_RECHECK_UPLOADS} held ({tally['rechecked']} rechecked on the page, {tally['message']} "
+           f"refused or stopped with a one-line message, {tally['accepted']} other; no exception)", tried=N_RECHECK_UPLOADS,
+           held=N_RECHECK_UPLOADS, **dict(tally))
