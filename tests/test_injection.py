@@ -80,10 +80,44 @@ def record():
     fields = {k: PAYLOADS[v] for k, v in FIELD_PAYLOADS.items()}
     for (section, key), v in NESTED_PAYLOADS.items():
         fields.setdefault(section, {})[key] = PAYLOADS[v]
-    policy = Policy.from_dict({"objective": {"kind": "max_youden"},
+    policy = Policy.from_dict({"objective": {"kind": "max_youden"}, "rules": {"min_recall": 0.3},
                                "costs": {"false_positive": 1.0, "false_negative": 9.0,
                                          "unit": "<b>EUR</b> (net)"}})
     return decide(ds, policy, memo_fields=fields, n_replicates=60, folds=2)
+
+
+@pytest.fixture(scope="module")
+def recheck_record(record):
+    """A recheck of the hostile record on new data whose group values are hostile too."""
+    import pandas as pd
+
+    from core.recheck import build_recheck_record, recheck
+
+    rng = np.random.default_rng(4)
+    n = 900
+    y = rng.random(n) < 0.1
+    frame = pd.DataFrame({SCORE_COLUMN: np.round(rng.normal(y * 1.5, 1.0), 3),
+                          "outcome": y.astype(int),
+                          GROUP_COLUMN: np.array(GROUP_VALUES)[rng.integers(0, 3, n)]})
+    result = recheck(record, frame.to_csv(index=False).encode(), n_replicates=60)
+    return build_recheck_record(result)
+
+
+def test_recheck_memo_renders_hostile_text_literally(recheck_record):
+    from pypdf import PdfReader
+
+    from core.recheck_memo import recheck_markdown, recheck_pdf
+
+    title = PAYLOADS[FIELD_PAYLOADS["title"]]
+    p = _render(recheck_markdown(recheck_record))
+    assert not {"script", "img", "div", "a", "font", "para"} & set(p.tags), sorted(set(p.tags))
+    shown = _squash("".join(p.text))
+    for text in (title, *GROUP_VALUES):  # the subgroup verdicts name the hostile groups
+        assert _squash(text) in shown, text
+    reader = PdfReader(io.BytesIO(recheck_pdf(recheck_record)))
+    pdf = _squash("".join(page.extract_text() or "" for page in reader.pages))
+    for text in (title, *GROUP_VALUES):
+        assert _in_pdf(text, pdf), text
 
 
 def _squash(text: str) -> str:
