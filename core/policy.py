@@ -519,7 +519,7 @@ def load_policy(path) -> Policy:
     """Read a policy file (TOML)."""
     p = Path(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        text = p.read_text(encoding="utf-8-sig")  # a byte-order mark (Windows editors) is not TOML
     except UnicodeDecodeError:
         raise PolicyError(["not UTF-8 text"], source=p.name) from None
     return loads_policy(text, source=p.name)

@@ -284,6 +284,17 @@ def test_fuzz_policy_files(small_dataset, tmp_path, capsys):
            tried=tried, held=tried, **dict(tally))
 
 
+def test_policy_and_memo_field_files_with_a_byte_order_mark_load(tmp_path):
+    from core.memo_fields import load_memo_fields
+    from core.policy import load_policy
+
+    path = tmp_path / "p.toml"
+    path.write_bytes(b"\xef\xbb\xbf[objective]\nkind = \"max_youden\"\n")
+    assert load_policy(path).objective.kind == "max_youden"
+    path.write_bytes(b"\xef\xbb\xbftitle = \"Q1\"\n")
+    assert load_memo_fields(path)["title"] == "Q1"
+
+
 def _utf8(data: bytes) -> bool:
     try:
         data.decode("utf-8")
