@@ -57,10 +57,13 @@ def _write_keys(folder: Path, name: str = "key", seed: bytes | None = None):
 
 @pytest.fixture(scope="module")
 def record_path(tmp_path_factory):
+    return make_record(tmp_path_factory.mktemp("signing"))
+
+
+def make_record(folder: Path) -> Path:
     """A real record: fulcrum pick on the breast-cancer set shipped with scikit-learn."""
     from sklearn.datasets import load_breast_cancer
 
-    folder = tmp_path_factory.mktemp("signing")
     data = load_breast_cancer(as_frame=True)
     frame = pd.DataFrame({"worst_radius": data.frame["worst radius"],
                           "diagnosis": np.where(data.target == 0, "malignant", "benign")})
