@@ -31,6 +31,7 @@ from tests.browser import (
     wait_idle,
     wait_text,
 )
+from tests.reliability import report
 
 ROOT = Path(__file__).resolve().parents[1]
 TILE_NAMES = ("Precision", "Recall", "Specificity")
@@ -109,7 +110,7 @@ def test_every_app_cache_is_bounded_and_keyed_by_content():
         assert not any("session" in a for a in hashed), f"{where}:{fn.name}: keyed by session"
 
 
-def test_evidence_page_keys_its_caches_by_the_data_fingerprint(monkeypatch):
+def test_evidence_page_keys_its_caches_by_the_data_fingerprint(monkeypatch, capsys):
     """Run the Evidence page (AppTest, demo data) and record every key given to BoundedCache."""
     from streamlit.testing.v1 import AppTest
 
@@ -133,7 +134,9 @@ def test_evidence_page_keys_its_caches_by_the_data_fingerprint(monkeypatch):
     assert len(keys) >= 3  # evidence, subgroups, calibration (and repeated cases)
     for _, key in keys:
         assert isinstance(key, tuple) and key[0] == fp, key
-    print(f"\nEvidence page: {len(keys)} cache keys, each led by the data fingerprint")
+    report(capsys, "cache_keys", f"Evidence page: {len(keys)} cache keys, each led by the data "
+           "fingerprint; every st.cache_resource in app/ bounded (max_entries) and keyed by it",
+           keys=len(keys))
 
 
 # --------------------------------------------------------------------------- two users at once
@@ -183,7 +186,7 @@ def upload(page, path: Path) -> None:
 
 
 @pytest.mark.browser
-def test_two_sessions_at_once_see_only_their_own_data_point_and_policy(tmp_path):
+def test_two_sessions_at_once_see_only_their_own_data_point_and_policy(tmp_path, capsys):
     require_browser()
     users = {
         "alpha": {"frame": invented(11, 6000, 0.02), "move": ("ArrowLeft", 7), "unit": "alphaharm"},
@@ -243,7 +246,7 @@ def test_two_sessions_at_once_see_only_their_own_data_point_and_policy(tmp_path)
                 assert other["unit"] not in page.locator('[data-testid="stMain"]').inner_text()
                 screenshot(page, f"isolation-{name}-{rnd}")
                 held += 1
-        print(f"\nisolation: two contexts at once, {tried} checks of data, point, tiles and policy; "
-              f"{held} held")
+        report(capsys, "isolation", f"isolation: two Chromium contexts at once, {tried} checks of "
+               f"data, point, tiles and policy, {held} held", tried=tried, held=held)
         for u in users.values():
             u["context"].close()

@@ -45,6 +45,7 @@ from tests.browser import (
     wait_idle,
     wait_text,
 )
+from tests.reliability import report
 
 pytestmark = pytest.mark.browser
 
@@ -178,7 +179,7 @@ def _download(page, button: str, target: Path) -> Path:
     return target
 
 
-def test_no_row_reaches_disk_or_logs(tmp_path, monkeypatch):
+def test_no_row_reaches_disk_or_logs(tmp_path, monkeypatch, capsys):
     require_browser()
     inputs = tmp_path / "inputs"
     home, tmp, work, downloads = (tmp_path / d for d in ("home", "tmp", "work", "downloads"))
@@ -276,9 +277,14 @@ def test_no_row_reaches_disk_or_logs(tmp_path, monkeypatch):
     log_scan = scan([p.parent for p in logs], since, exclude)
     log_hits = [h for h in log_scan["hits"] if Path(h[0]) in {q.resolve() for q in logs}]
     log_bytes = sum(p.stat().st_size for p in logs)
-    print(f"\nno rows on disk: {written['files']} files written, {written['bytes']:,} bytes scanned "
-          f"(PDF streams inflated, zip/gzip/Parquet unpacked), hits={len(written['hits'])}; "
-          f"logs: {len(logs)} streams, {log_bytes:,} bytes, hits={len(log_hits)}")
+    report(capsys, "no_rows_on_disk",
+           f"no rows on disk: full flow in Chromium and the CLI with marker values; "
+           f"{written['files']} files written, {written['bytes']:,} bytes scanned (PDF streams "
+           f"inflated and text extracted, zip/xlsx, gzip and Parquet unpacked), "
+           f"hits={len(written['hits'])}; logs: {len(logs)} streams, {log_bytes:,} bytes, "
+           f"hits={len(log_hits)}",
+           files=written["files"], bytes=written["bytes"], hits=len(written["hits"]),
+           log_streams=len(logs), log_bytes=log_bytes, log_hits=len(log_hits))
     assert written["files"] >= 13  # at least the eleven downloads and CLI outputs, plus the logs
     assert not written["hits"], written["hits"][:10]
     assert not log_hits, log_hits[:10]
