@@ -23,6 +23,7 @@ from core.cli_columns import (
     reduce_from_args,
     reduce_progress_printer,
 )
+from core.cli_sign import add_signature_arguments, signature_from_args
 from core.errors import InputError
 
 __all__ = ["add_recheck", "override_from_args", "recheck_summary_lines", "run_recheck"]
@@ -83,6 +84,7 @@ def add_recheck(sub) -> None:
                    help="seed of the subgroup bootstrap (default: the record's)")
     a.add_argument("--replicates", metavar="N", type=int, default=None,
                    help="bootstrap replicates of the subgroup table (default: the record's)")
+    add_signature_arguments(p.add_argument_group("signature of the decision record"))
     o = p.add_argument_group("outputs")
     o.add_argument("--out", metavar="RECHECK.json", help="write the recheck record here")
     o.add_argument("--memo", metavar="OUT.pdf", help="write the recheck memo (PDF) here")
@@ -164,6 +166,7 @@ def run_recheck(args) -> int:
     for opt, path in (("--out", args.out), ("--memo", args.memo), ("--markdown", args.markdown)):
         if path and not Path(path).resolve().parent.is_dir():
             raise InputError(opt, f"the folder of {path} does not exist")
+    verification = signature_from_args(args, args.record)  # exit 2 when not valid
     record = load_record(args.record)
     policy = None
     if args.policy:
@@ -182,7 +185,8 @@ def run_recheck(args) -> int:
     result = recheck(record, source, as_of=args.as_of, live=args.live,
                      mapping_override=override_from_args(args, record), policy=policy,
                      n_replicates=reps, seed=seed)
-    rec = build_recheck_record(result)
+    rec = build_recheck_record(result, signature=None if verification is None
+                               else verification.to_dict())
     written = []
     if args.out:
         write_recheck(rec, args.out)
@@ -197,6 +201,8 @@ def run_recheck(args) -> int:
 
         write_recheck_markdown(rec, args.markdown)
         written.append(("markdown", args.markdown))
+    if verification is not None:
+        print(verification.line())
     print("\n".join(recheck_summary_lines(rec, written)))
     return exit_code(result)
 

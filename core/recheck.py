@@ -1015,8 +1015,14 @@ def _data_summary(r: RecheckResult) -> dict:
     })
 
 
-def build_recheck_record(result: RecheckResult, *, created_utc: str | None = None) -> dict:
-    """The sealed recheck record (schema ``fulcrum.recheck/1``) of a :class:`RecheckResult`."""
+def build_recheck_record(result: RecheckResult, *, created_utc: str | None = None,
+                         signature: dict | None = None) -> dict:
+    """The sealed recheck record (schema ``fulcrum.recheck/1``) of a :class:`RecheckResult`.
+
+    ``signature``: the decision record's signature check
+    (:meth:`core.signing.Verification.to_dict`), carried as the key
+    ``signature`` when one was made.
+    """
     from core import __version__, cautions
 
     r = result
@@ -1050,6 +1056,8 @@ def build_recheck_record(result: RecheckResult, *, created_utc: str | None = Non
         "statements": list(r.statements),
         "cautions": {"full": cautions.FULL, "label_shift": cautions.LABEL_SHIFT},
     }
+    if signature is not None:
+        body["signature"] = signature
     return seal(json_safe(body))
 
 
@@ -1074,7 +1082,10 @@ def _no_constants(name):
 def loads_recheck(text, *, source: str | None = None) -> dict:
     """Parse a recheck record and verify its schema and integrity (RecordError names the field)."""
     if isinstance(text, (bytes, bytearray)):
-        text = bytes(text).decode("utf-8-sig")
+        try:
+            text = bytes(text).decode("utf-8-sig")
+        except UnicodeDecodeError:
+            raise RecordError(None, "is not UTF-8 text", source=source) from None
     try:
         rec = json.loads(text, parse_constant=_no_constants)
     except ValueError as exc:

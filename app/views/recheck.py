@@ -53,6 +53,7 @@ PDF = "fulcrum_recheck_pdf"                # (recheck sha256, PDF bytes)
 NOW = "fulcrum_recheck_now"                # ((inputs key, changed policy TOML), sealed record)
 POLICY_DICT = "fulcrum_recheck_policy"     # the recheck's own policy editor (not the Decide page's)
 POLICY_KEYS = K + "policy_"                # its widget-key prefix
+SIGNATURE = "fulcrum_recheck_signature"    # the decision record's signature check (dict) or None
 DEMO_Q2 = "Demo: hospital, second quarter"
 MEMO_SOURCE = "The record built on the Memo page"
 UPLOAD_SOURCE = "Upload a decision record (JSON)"
@@ -80,6 +81,42 @@ def _decision_record():
     except InputError as exc:
         st.error(str(exc))
         return None
+
+
+def _signature_check(record) -> bool:
+    """The optional check of the decision record's signature; False when it is not valid.
+
+    The same check as ``fulcrum recheck --public-key`` (:func:`core.signing.verify_record`);
+    its result goes into the recheck record. Keys are read from the upload, never stored.
+    """
+    from core.signing import load_public_key, loads_signature, verify_record
+
+    ss = st.session_state
+    ss[SIGNATURE] = None
+    with st.expander("Signature (optional): check who signed this decision record"):
+        c1, c2 = st.columns(2)
+        pub = c1.file_uploader("Signer's public key (PEM)", type=["pem", "pub", "txt", "key"],
+                               key=K + "public_key")
+        sig = c2.file_uploader("Signature file (RECORD.sig)", type=["sig", "json", "txt"],
+                               key=K + "signature")
+    if pub is None and sig is None:
+        return True
+    if pub is None or sig is None:
+        st.info("Upload both the signer's public key and the signature file to check the "
+                "signature.")
+        return True
+    try:
+        result = verify_record(record, loads_signature(sig.getvalue(), source=sig.name),
+                               load_public_key(pub.getvalue()))
+    except InputError as exc:
+        st.error(str(exc))
+        return False
+    if not result.valid:
+        st.error(result.line())
+        return False
+    st.success(result.line())
+    ss[SIGNATURE] = result.to_dict()
+    return True
 
 
 def _new_data():
@@ -179,13 +216,14 @@ def _final_record(key, result, policy) -> dict:
     """The sealed recheck record shown and exported (the changed policy's choice now, if any)."""
     ss = st.session_state
     pkey = None if policy is None else dumps_policy(policy)
-    full = (key, pkey)
+    signature = ss.get(SIGNATURE)
+    full = (key, pkey, None if signature is None else signature["key_fingerprint"])
     got = ss.get(NOW)
     if got is not None and got[0] == full:
         return got[1]
     res = result if policy is None else rechoose(result, policy)
     created = ss.setdefault(CREATED, {})
-    rec = build_recheck_record(res, created_utc=created.get(full))
+    rec = build_recheck_record(res, created_utc=created.get(full), signature=signature)
     created[full] = rec["created_utc"]
     ss[NOW] = (full, rec)
     ss[RECORD] = rec
@@ -306,6 +344,8 @@ st.caption("Does the approved threshold still meet its rules on new labelled sco
            "moved, and what would the same policy choose now?")
 st.info(cautions.FULL)
 record = _decision_record()
+if record is not None and not _signature_check(record):
+    record = None  # a signature that does not hold: no recheck
 source, name, ident = _new_data() if record is not None else (None, None, None)
 if record is not None and source is not None:
     over = _overrides(record)
