@@ -224,10 +224,11 @@ def analyse(dataset: Dataset, policy: Policy, *, threshold: float | None = None,
         try:
             rule_opt = (cross_fit(dataset, policy, k=folds, seed=seed),
                         harrell_correction(dataset, policy, stability=ev.stability))
-        except InputError:
-            if dataset.kind != "counts":
+        except InputError as exc:
+            if dataset.kind != "counts" and exc.column != "k":
                 raise
-            rule_opt = None  # a count table of weight sums cannot be split into folds
+            # a count table of weight sums cannot be split into folds; fewer events than folds
+            rule_opt = None
     groups, fairness, calib = _subgroup_sections(
         dataset, policy, float(dataset.curve().thresholds[ch.point.index]), confidence=confidence,
         n_replicates=n_replicates, seed=seed, progress=progress)

@@ -562,14 +562,20 @@ def evidence(data, policy, *, threshold: float | None = None,
         try:
             cf = cross_fit(data, policy, k=k, seed=seed, cells=cells)
         except InputError as exc:
-            if getattr(data, "kind", None) != "counts":
-                raise
-            # a weighted count table cannot be split into folds; the rest needs no rows
             cf = None
-            statement += (f" Cross-fitting was not run ({exc.problem}): a count table of weight "
-                          "sums cannot be split into folds case by case, so only the "
-                          "bootstrap-corrected values are given; load the rows for cross-fitted "
-                          "ones.")
+            if exc.column == "k":
+                # fewer events than folds: no fold could hold an event of each kind
+                statement += (f" Cross-fitting was not run: {exc.problem}. Only the "
+                              "bootstrap-corrected values are given, and with so few events "
+                              "even they are rough.")
+            elif getattr(data, "kind", None) == "counts":
+                # a weighted count table cannot be split into folds; the rest needs no rows
+                statement += (f" Cross-fitting was not run ({exc.problem}): a count table of "
+                              "weight sums cannot be split into folds case by case, so only the "
+                              "bootstrap-corrected values are given; load the rows for "
+                              "cross-fitted ones.")
+            else:
+                raise
     else:
         cf = hc = None
         statement = ("The threshold was pre-specified (fixed before these data were seen): no "
