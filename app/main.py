@@ -23,9 +23,11 @@ def sidebar(box) -> None:
     with box:
         st.markdown("### Fulcrum")
         st.markdown(f"**Active data:** {act.label}")
-        c1, c2 = st.columns(2)
-        c1.metric("Cases", fmt.count(ds.n_rows))
-        c2.metric("Events", fmt.count(ds.n_events))
+        cases, events = fmt.count(ds.n_rows), fmt.count(ds.n_events)
+        # side by side only while both numbers fit half the sidebar (six digits do not)
+        c1, c2 = st.columns(2) if max(len(cases), len(events)) <= 6 else (st.container(),) * 2
+        c1.metric("Cases", cases)
+        c2.metric("Events", events)
         st.metric("Prevalence", fmt.pct(ds.prevalence, 2))
         curve = ds.curve()
         st.caption(f"Operating point: threshold {fmt.threshold(curve.thresholds[act.point])}")

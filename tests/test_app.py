@@ -158,8 +158,15 @@ def test_good_upload_becomes_the_active_dataset():
     at.selectbox(key="map_score").set_value("risk").run()
     at.selectbox(key="map_label").set_value("event").run()
     at.selectbox(key="map_positive").set_value("yes").run()
+    # before the mapping is applied the summary says it is still of the demo
+    heads = [h.value for h in at.subheader]
+    assert any(h.startswith("Summary of the data still in use") for h in heads), heads
+    assert any("not in use yet" in i.value for i in at.info)
     at.button(key="map_apply").click().run()
     assert not at.exception and not at.error
+    heads = [h.value for h in at.subheader]
+    assert "Summary: mine.csv" in heads and not any("still in use" in h for h in heads), heads
+    assert not any("not in use yet" in i.value for i in at.info)
     side = {m.label: m.value for m in at.sidebar.metric}
     assert side["Cases"] == "3,000" and side["Events"] == fmt.count(int(y.sum()))
     at.switch_page("views/tradeoffs.py").run()

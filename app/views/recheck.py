@@ -167,7 +167,7 @@ def _settings(record):
     live = c2.checkbox("Collected while the threshold was live", key=K + "live",
                        help="Flagged cases were acted on, which changes their outcomes.")
     reps = c3.number_input("Bootstrap replicates (subgroups)", min_value=50, step=100,
-                           value=int(an.get("n_replicates", 2000)), key=K + "reps")
+                           value=max(50, int(an.get("n_replicates", 2000))), key=K + "reps")
     seed = c4.number_input("Seed", min_value=0, step=1, value=int(an.get("seed", 0)),
                            key=K + "seed")
     return as_of, bool(live), int(reps), int(seed)

@@ -13,6 +13,7 @@ from core.summaries import class_histogram
 UPLOAD = "upload"
 LOCAL = "local"  # a large file on this machine, read in place by the reduction
 NONE = "(none)"
+APPLIED = "scores_applied"  # token of the upload or local file whose data are in use
 DECIMAL_CHOICES = (None, 1, 2, 3, 4, 5, 6)
 
 
@@ -121,7 +122,8 @@ def _mapping_form(raw):
                    extra_lower_is_riskier=extra_lower)
 
 
-def _upload_section() -> None:
+def _upload_section() -> tuple | None:
+    """The uploaded file's form; returns the upload's token (None before a file is read)."""
     from core.intake import load_dataset
 
     upload = st.file_uploader("Validation scores: CSV, TSV, Parquet or Excel (kept in memory only)",
@@ -129,7 +131,7 @@ def _upload_section() -> None:
                               key="scores_upload")
     if upload is None:
         st.info("Upload a file to map its columns. Nothing you upload is written to disk.")
-        return
+        return None
     with st.expander("Read options (detected automatically; override if the file needs it)"):
         r1, r2, r3 = st.columns(3)
         delim = r1.selectbox("Delimiter", ["detect", ",", ";", "tab", "|"], key="read_delim")
@@ -146,7 +148,8 @@ def _upload_section() -> None:
         raw = _read_upload(upload, options)
     except InputError as exc:
         st.error(str(exc))
-        return
+        return None
+    token = (UPLOAD, getattr(upload, "file_id", None) or upload.name)
     info = raw.info
     st.caption(f"Read {fmt.count(raw.n_rows)} rows × {len(raw.columns)} columns as {info.format}"
                + (f", delimiter {info.delimiter!r}, decimal {info.decimal!r}" if info.delimiter else "")
@@ -157,20 +160,25 @@ def _upload_section() -> None:
         mapping = _mapping_form(raw)
     except InputError as exc:
         st.error(str(exc))
-        return
+        return token
     if st.button("Use this mapping", type="primary", key="map_apply"):
         try:
             ds = load_dataset(raw, mapping)
         except InputError as exc:
             st.error(str(exc))
-            return
+            return token
         st.session_state[state.SOURCE] = UPLOAD
+        st.session_state[APPLIED] = token
         state.set_dataset(ds, label=upload.name)
         st.success(f"Loaded {upload.name}: {fmt.count(ds.n_rows)} cases, {fmt.count(ds.n_events)} events.")
+    return token
 
 
-def _local_section() -> None:
-    """A large Parquet / CSV file on this machine: counted in place by DuckDB, never copied."""
+def _local_section() -> tuple | None:
+    """A large Parquet / CSV file on this machine: counted in place by DuckDB, never copied.
+
+    Returns the file's token (None before a path is given).
+    """
     from core.dataset import Mapping
     from core.reduce import file_columns, reduce_file
 
@@ -181,15 +189,16 @@ def _local_section() -> None:
     path = st.text_input("Path of the file on this machine", key="local_path",
                          placeholder="/data/validation_scores.parquet").strip()
     if not path:
-        return
+        return None
     from pathlib import Path
 
     p = Path(path).expanduser()
+    token = (LOCAL, str(p))
     try:
         cols = file_columns(p)
     except InputError as exc:
         st.error(str(exc))
-        return
+        return token
     c1, c2, c3 = st.columns(3)
     score = c1.selectbox("Score column", cols, key="local_score")
     label = c2.selectbox("Label column", cols, index=min(1, len(cols) - 1), key="local_label")
@@ -209,7 +218,7 @@ def _local_section() -> None:
                                  "not flagged (exact on that grid)")
     lower = d2.checkbox("Lower score = higher risk", key="local_lower")
     if not st.button("Count this file", type="primary", key="local_apply"):
-        return
+        return token
     bar = st.progress(0.0, text="Starting the reduction…")
 
     def progress(fraction, stage):
@@ -228,19 +237,26 @@ def _local_section() -> None:
     except InputError as exc:
         bar.empty()
         st.error(str(exc))
-        return
+        return token
     bar.progress(1.0, text="Counted.")
     st.session_state[state.SOURCE] = LOCAL
+    st.session_state[APPLIED] = token
     state.set_dataset(ds, label=p.name)
     st.success(f"Counted {p.name}: {fmt.count(ds.reduction.rows_read)} rows into "
                f"{fmt.count(ds.reduction.table_rows)} count-table rows.")
     st.caption(ds.reduction.statement())
+    return token
 
 
-def _summary() -> None:
+def _summary(pending: bool = False) -> None:
     act = state.active()
     ds = act.dataset
-    st.subheader(f"Summary: {act.label}")
+    if pending:
+        st.subheader(f"Summary of the data still in use: {act.label}")
+        st.info("The file above is not in use yet: the summary below and every other page still show "
+                f"{act.label}. Apply the mapping to switch.")
+    else:
+        st.subheader(f"Summary: {act.label}")
     lo, hi = ds.score_range
     c = st.columns(6)
     c[0].metric("Cases", fmt.count(ds.n_rows))
@@ -280,11 +296,12 @@ def render() -> None:
     if source not in (UPLOAD, LOCAL) and source != current:
         st.session_state[state.SOURCE] = source
         state.set_dataset(state.demo_dataset(source), label=demos[source])
+    token = None
     if source == UPLOAD:
-        _upload_section()
+        token = _upload_section()
     elif source == LOCAL:
-        _local_section()
-    _summary()
+        token = _local_section()
+    _summary(pending=token is not None and st.session_state.get(APPLIED) != token)
 
 
 render()
