@@ -130,12 +130,12 @@ def compare_mapping_from_args(args, raw=None):
 
 def _load(args):
     """Read and check the data exactly as the app does (same messages)."""
-    from core.intake import _mapped_columns, load_dataset, read_table
+    from core.intake import load_dataset, mapped_columns, read_table
 
     mapping = compare_mapping_from_args(args)
     if mapping.positive_label is not None:
         return load_dataset(args.data, mapping, sheet=args.sheet)
-    raw = read_table(args.data, sheet=args.sheet, columns=_mapped_columns(mapping))
+    raw = read_table(args.data, sheet=args.sheet, columns=mapped_columns(mapping))
     return load_dataset(raw, compare_mapping_from_args(args, raw))
 
 

@@ -141,7 +141,7 @@ def mapping_from_args(args, raw=None):
 
 def _load(args):
     """Read and check the data exactly as the app does (same messages)."""
-    from core.intake import _mapped_columns, load_dataset, read_table
+    from core.intake import load_dataset, mapped_columns, read_table
 
     check_reduce_options(args)
     mapping = mapping_from_args(args)
@@ -162,7 +162,7 @@ def _load(args):
             raise
     if mapping.positive_label is not None:
         return load_dataset(args.data, mapping, sheet=args.sheet)
-    raw = read_table(args.data, sheet=args.sheet, columns=_mapped_columns(mapping))
+    raw = read_table(args.data, sheet=args.sheet, columns=mapped_columns(mapping))
     return load_dataset(raw, mapping_from_args(args, raw))
 
 

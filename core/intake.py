@@ -56,6 +56,7 @@ __all__ = [
     "load_count_table",
     "load_dataset",
     "load_demo",
+    "mapped_columns",
     "read_table",
     "suggest_mapping",
 ]
@@ -246,7 +247,12 @@ def _check_mapping(m: Mapping) -> Mapping:
     return m
 
 
-def _mapped_columns(m: Mapping) -> dict[str, str]:
+def mapped_columns(m: Mapping) -> dict[str, str]:
+    """The file columns a mapping reads, each with the part it plays ("score column", ...).
+
+    Readers pass its keys as ``columns=`` so that a wide file loads only what is mapped.
+    """
+    m = _as_mapping(m)
     roles = _ROLES_ROWS if m.kind == "rows" else _ROLES_COUNTS
     out = {getattr(m, r): _ROLE_WORDS[r] for r in roles if getattr(m, r) is not None}
     for g in m.groups:
@@ -1290,7 +1296,7 @@ def load_dataset(source_or_raw, mapping, **read_options) -> Dataset:
         naming the column, the problem, how many rows and the first few.
     """
     m = _check_mapping(_as_mapping(mapping))
-    wanted = _mapped_columns(m)
+    wanted = mapped_columns(m)
     if isinstance(source_or_raw, RawTable):
         raw = source_or_raw
     else:

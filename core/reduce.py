@@ -64,7 +64,6 @@ from core.fingerprint import text_codes, value_text
 from core.intake import (
     _check_mapping,
     _label_codes,
-    _mapped_columns,
     _match_positive,
     _n,
     _not_numbers_error,
@@ -72,6 +71,7 @@ from core.intake import (
     _value_list,
     _warn_few_events,
     _warn_float32,
+    mapped_columns,
 )
 from core.reading import (
     MISSING_TEXT,
@@ -720,7 +720,7 @@ drop_missing_scores
     with _Engine(memory_limit, threads, temp_dir, progress) as engine:
         engine.share = 1.0 / passes
         src = _open_source(path, engine, delimiter=delimiter, decimal=decimal)
-        for col, role in _mapped_columns(m).items():
+        for col, role in mapped_columns(m).items():
             if col not in src.types:
                 raise missing_column_error(col, role, src.names, src.delimiter)
         checked = _check(engine, src, m, d, default_positive=default_positive)
