@@ -131,3 +131,14 @@ from core.sql import reduction_sql  # noqa: E402
 
 __all__ += ["Comparison", "compare_dataset", "compare_scores", "RecheckResult", "recheck", "reduce_file",
             "reduction_sql"]
+
+from core.compare import compare_mapped  # noqa: E402
+from core.compare_record import build_compare_document, check_compare_document  # noqa: E402
+from core.intake import mapped_columns  # noqa: E402
+from core.recheck import build_recheck_record, policy_changes, rechoose  # noqa: E402
+from core.reduce import Reduction, reduction_of  # noqa: E402
+from core.signing import Verification, sign_record, verify_record  # noqa: E402
+
+__all__ += ["compare_mapped", "build_compare_document", "check_compare_document", "mapped_columns",
+            "build_recheck_record", "policy_changes", "rechoose", "Reduction", "reduction_of",
+            "Verification", "sign_record", "verify_record"]
