@@ -17,7 +17,7 @@ from pathlib import Path
 from core import __version__
 from core.errors import InputError
 
-__all__ = ["main", "build_parser", "COMMANDS"]
+__all__ = ["COMMANDS", "SERVER_ENV", "SERVER_FLAGS", "build_parser", "main"]
 
 APP_ENTRY = Path(__file__).resolve().parents[1] / "app" / "main.py"
 
@@ -35,13 +35,20 @@ SERVER_FLAGS = (
 )
 
 
+#: Environment every launch sets: usage statistics off; at most two malloc arenas, so that the
+#: server's many threads (one per session and upload) do not each keep a heap of their own and
+#: memory returns to its level after a large upload is replaced (common practice for long-lived
+#: multi-threaded Python servers on glibc, no source).
+SERVER_ENV = {"STREAMLIT_BROWSER_GATHER_USAGE_STATS": "false", "MALLOC_ARENA_MAX": "2"}
+
+
 def _cmd_app(args: argparse.Namespace) -> int:
     """Open the browser app on the demo data (bound to 127.0.0.1)."""
     if not APP_ENTRY.exists():
         raise InputError(None, f"the app is not installed next to the core ({APP_ENTRY})")
     cmd = [sys.executable, "-m", "streamlit", "run", str(APP_ENTRY), *SERVER_FLAGS,
            f"--server.port={args.port}", f"--server.headless={'true' if args.headless else 'false'}"]
-    env = dict(os.environ, STREAMLIT_BROWSER_GATHER_USAGE_STATS="false")
+    env = dict(os.environ, **SERVER_ENV)
     return subprocess.call(cmd, env=env)
 
 

@@ -50,10 +50,10 @@ def free_port() -> int:
 @contextlib.contextmanager
 def running_app(env_extra: dict | None = None, timeout: float = 90.0):
     """Yield the base URL of a freshly started app; stop it afterwards."""
-    from core.cli import SERVER_FLAGS
+    from core.cli import SERVER_ENV, SERVER_FLAGS
 
     port = free_port()
-    env = dict(os.environ, STREAMLIT_BROWSER_GATHER_USAGE_STATS="false", **(env_extra or {}))
+    env = {**os.environ, **SERVER_ENV, **(env_extra or {})}  # the environment `fulcrum app` sets
     cmd = [sys.executable, "-m", "streamlit", "run", str(ROOT / "app" / "main.py"), *SERVER_FLAGS,
            f"--server.port={port}", "--server.headless=true", "--server.fileWatcherType=none"]
     ARTIFACTS.mkdir(exist_ok=True)

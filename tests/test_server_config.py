@@ -80,3 +80,11 @@ def test_the_launched_server_listens_on_loopback_only_and_refuses_foreign_reques
         except urllib.error.HTTPError as exc:
             refused = exc.code
         assert refused == 403  # no XSRF cookie and header: Tornado refuses before reading the file
+
+
+def test_every_launch_sets_usage_statistics_off_in_its_environment():
+    """`fulcrum app` and the browser tests' server start with the same environment."""
+    from core.cli import SERVER_ENV
+
+    assert SERVER_ENV["STREAMLIT_BROWSER_GATHER_USAGE_STATS"] == "false"
+    assert int(SERVER_ENV["MALLOC_ARENA_MAX"]) >= 1
