@@ -232,8 +232,14 @@ def test_no_row_reaches_disk_or_logs(tmp_path, monkeypatch, capsys):
         open_page(page, "Recheck", "Decision record")
         page.get_by_text("Upload a file").click()
         wait_idle(page)
-        page.locator('[data-testid="stFileUploader"] input[type="file"]').last.set_input_files(str(new))
-        wait_text(page, "Rules at the approved threshold")
+        # the new-data uploader by its label (the signature expander holds uploaders too)
+        page.locator('[data-testid="stFileUploader"]', has_text="New labelled scores") \
+            .locator('input[type="file"]').set_input_files(str(new))
+        try:
+            wait_text(page, "Rules at the approved threshold")
+        except Exception:
+            screenshot(page, "privacy-04-recheck-failed")  # what the page showed instead
+            raise
         _download(page, "Recheck record (JSON)", downloads / "recheck.json")
         _download(page, "Recheck memo (Markdown)", downloads / "recheck.md")
         page.get_by_role("button", name="Build the PDF memo").first.click()
