@@ -17,7 +17,6 @@ is ever written.
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
 
 from core import cautions
@@ -280,47 +279,11 @@ def compare_memo_blocks(doc: dict) -> list[Block]:
 
 def compare_pdf(doc: dict) -> bytes:
     """The comparison memo as PDF bytes (the threshold memo's styles and table helpers)."""
-    from reportlab.lib import colors
-    from reportlab.lib.pagesizes import A4
-    from reportlab.lib.units import mm
-    from reportlab.platypus import PageBreak, Paragraph, SimpleDocTemplate, Spacer
+    from core.memo_pdf import render_pdf
 
-    from core import memo_pdf as mp
-
-    mp._register_fonts()
-    st = mp._styles()
-    out = []
-    for blk in compare_memo_blocks(doc):
-        k = blk.kind
-        if k in ("title", "subtitle", "h1", "h2", "p", "strong"):
-            out.append(Paragraph(mp.pdf_escape(blk.text), st[k]))
-        elif k == "caution":
-            out += [mp._caution(blk, st), Spacer(1, 3)]
-        elif k == "table":
-            out += [mp._table(blk, st), Spacer(1, 5)]
-        elif k == "kv":
-            out += [mp._kv(blk, st), Spacer(1, 5)]
-        elif k == "pagebreak":
-            out.append(PageBreak())
-        else:  # pragma: no cover - compare_memo_blocks makes no other kind
-            raise AssertionError(k)
-    buf = io.BytesIO()
     short = doc["integrity"]["sha256"][:16]
-
-    def decorate(canvas, d):
-        canvas.saveState()
-        canvas.setFont(mp.FONT, 6.8)
-        canvas.setFillColor(colors.HexColor("#666666"))
-        canvas.drawString(16 * mm, 9 * mm, cautions.SHORT)
-        canvas.drawRightString(A4[0] - 16 * mm, 5.5 * mm,
-                               f"Fulcrum comparison memo · document {short}… · page {d.page}")
-        canvas.restoreState()
-
-    tpl = SimpleDocTemplate(buf, pagesize=A4, leftMargin=16 * mm, rightMargin=16 * mm,
-                            topMargin=14 * mm, bottomMargin=16 * mm, title=compare_title(doc),
-                            subject="Comparison memo", creator=f"Fulcrum {doc['software_version']}")
-    tpl.build(out, onFirstPage=decorate, onLaterPages=decorate)
-    return buf.getvalue()
+    return render_pdf(compare_memo_blocks(doc), title=compare_title(doc), subject="Comparison memo",
+                      footer=f"Fulcrum comparison memo · document {short}…", software_version=doc["software_version"])
 
 
 def write_compare_pdf(doc: dict, path) -> None:

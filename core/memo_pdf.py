@@ -38,7 +38,7 @@ from core import cautions
 from core.memo_content import Block, memo_blocks, memo_title
 from core.memo_figures import available_figures, figure_png
 
-__all__ = ["memo_pdf", "write_memo_pdf", "pdf_escape", "FONT", "FONT_BOLD", "FONT_MONO"]
+__all__ = ["memo_pdf", "write_memo_pdf", "render_pdf", "pdf_escape", "FONT", "FONT_BOLD", "FONT_MONO"]
 
 FONT, FONT_BOLD, FONT_MONO = "FulcrumSans", "FulcrumSans-Bold", "FulcrumMono"
 _FONT_FILES = {FONT: "DejaVuSans.ttf", FONT_BOLD: "DejaVuSans-Bold.ttf", FONT_MONO: "DejaVuSansMono.ttf"}
@@ -158,10 +158,10 @@ def _figure(record, block: Block, st, have: set):
     return [KeepTogether([img, Paragraph(pdf_escape(block.text), st["caption"])])]
 
 
-def _flowables(record: dict, st) -> list:
-    have = set(available_figures(record))
+def _flowables(blocks, st, record: dict | None = None) -> list:
+    have = set(available_figures(record)) if record is not None else set()
     out = []
-    for block in memo_blocks(record):
+    for block in blocks:
         k = block.kind
         if k in ("title", "subtitle", "h1", "h2", "p", "strong"):
             out.append(Paragraph(pdf_escape(block.text), st[k]))
@@ -173,38 +173,49 @@ def _flowables(record: dict, st) -> list:
             out += [_kv(block, st), Spacer(1, 5)]
         elif k == "signoff":
             out += [_signoff(block, st), Spacer(1, 6)]
-        elif k == "figure":
+        elif k == "figure" and record is not None:
             out += _figure(record, block, st, have)
         elif k == "pagebreak":
             out.append(PageBreak())
-        else:  # pragma: no cover - every kind is listed in Block
+        else:  # pragma: no cover - every kind is listed in Block; figures need the record
             raise AssertionError(k)
     return out
 
 
-def memo_pdf(record: dict) -> bytes:
-    """The threshold memo of a decision record as PDF bytes."""
+def render_pdf(blocks, *, title: str, subject: str, footer: str, software_version: str,
+               author: str = "", record: dict | None = None) -> bytes:
+    """PDF bytes of memo blocks (:class:`core.memo_content.Block`) on A4 in the memo's styles.
+
+    Every page carries the short caution and ``footer`` with the page number; ``record`` (a
+    decision record) is needed only for ``figure`` blocks. The threshold, recheck and
+    comparison memos all render through here.
+    """
     _register_fonts()
     st = _styles()
     buf = io.BytesIO()
-    digest = record.get("integrity", {}).get("sha256", "")[:16]
-    title = memo_title(record)
 
     def decorate(canvas, doc):
         canvas.saveState()
         canvas.setFont(FONT, 6.8)
         canvas.setFillColor(colors.HexColor("#666666"))
         canvas.drawString(_MARGIN, 9 * mm, cautions.SHORT)
-        canvas.drawRightString(_PAGE_W - _MARGIN, 5.5 * mm,
-                               f"Fulcrum threshold memo · record {digest}… · page {doc.page}")
+        canvas.drawRightString(_PAGE_W - _MARGIN, 5.5 * mm, f"{footer} · page {doc.page}")
         canvas.restoreState()
 
     doc = SimpleDocTemplate(buf, pagesize=A4, leftMargin=_MARGIN, rightMargin=_MARGIN,
-                            topMargin=14 * mm, bottomMargin=16 * mm, title=title,
-                            author=record["memo"].get("author") or "", subject="Threshold memo",
-                            creator=f"Fulcrum {record.get('software_version', '')}")
-    doc.build(_flowables(record, st), onFirstPage=decorate, onLaterPages=decorate)
+                            topMargin=14 * mm, bottomMargin=16 * mm, title=title, author=author,
+                            subject=subject, creator=f"Fulcrum {software_version}")
+    doc.build(_flowables(blocks, st, record), onFirstPage=decorate, onLaterPages=decorate)
     return buf.getvalue()
+
+
+def memo_pdf(record: dict) -> bytes:
+    """The threshold memo of a decision record as PDF bytes."""
+    digest = record.get("integrity", {}).get("sha256", "")[:16]
+    return render_pdf(memo_blocks(record), title=memo_title(record), subject="Threshold memo",
+                      footer=f"Fulcrum threshold memo · record {digest}…",
+                      software_version=record.get("software_version", ""),
+                      author=record["memo"].get("author") or "", record=record)
 
 
 def write_memo_pdf(record: dict, path) -> None:

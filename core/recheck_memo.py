@@ -13,7 +13,6 @@ so both say the same in the same words. No data row is ever written.
 
 from __future__ import annotations
 
-import io
 from pathlib import Path
 
 from core import cautions
@@ -312,47 +311,11 @@ def recheck_blocks(rec: dict) -> list[Block]:
 
 def recheck_pdf(rec: dict) -> bytes:
     """The recheck memo as PDF bytes (the threshold memo's styles and table helpers)."""
-    from reportlab.lib import colors
-    from reportlab.lib.pagesizes import A4
-    from reportlab.lib.units import mm
-    from reportlab.platypus import PageBreak, Paragraph, SimpleDocTemplate, Spacer
+    from core.memo_pdf import render_pdf
 
-    from core import memo_pdf as mp
-
-    mp._register_fonts()
-    st = mp._styles()
-    out = []
-    for blk in recheck_blocks(rec):
-        k = blk.kind
-        if k in ("title", "subtitle", "h1", "h2", "p", "strong"):
-            out.append(Paragraph(mp.pdf_escape(blk.text), st[k]))
-        elif k == "caution":
-            out += [mp._caution(blk, st), Spacer(1, 3)]
-        elif k == "table":
-            out += [mp._table(blk, st), Spacer(1, 5)]
-        elif k == "kv":
-            out += [mp._kv(blk, st), Spacer(1, 5)]
-        elif k == "pagebreak":
-            out.append(PageBreak())
-        else:  # pragma: no cover - recheck_blocks makes no other kind
-            raise AssertionError(k)
-    buf = io.BytesIO()
     short = rec["integrity"]["sha256"][:16]
-
-    def decorate(canvas, doc):
-        canvas.saveState()
-        canvas.setFont(mp.FONT, 6.8)
-        canvas.setFillColor(colors.HexColor("#666666"))
-        canvas.drawString(16 * mm, 9 * mm, cautions.SHORT)
-        canvas.drawRightString(A4[0] - 16 * mm, 5.5 * mm,
-                               f"Fulcrum recheck memo · recheck {short}… · page {doc.page}")
-        canvas.restoreState()
-
-    doc = SimpleDocTemplate(buf, pagesize=A4, leftMargin=16 * mm, rightMargin=16 * mm,
-                            topMargin=14 * mm, bottomMargin=16 * mm, title=recheck_title(rec),
-                            subject="Recheck memo", creator=f"Fulcrum {rec['software_version']}")
-    doc.build(out, onFirstPage=decorate, onLaterPages=decorate)
-    return buf.getvalue()
+    return render_pdf(recheck_blocks(rec), title=recheck_title(rec), subject="Recheck memo",
+                      footer=f"Fulcrum recheck memo · recheck {short}…", software_version=rec["software_version"])
 
 
 def write_recheck_pdf(rec: dict, path) -> None:
