@@ -130,6 +130,28 @@ def open_page(page, link: str, text: str) -> None:
     wait_text(page, text)
 
 
+def switch_on(page, label: str, then: str, timeout: float = 120_000) -> None:
+    """Turn a Streamlit toggle on and wait for the widget it reveals (label ``then``).
+
+    A click that lands while the page is still re-running can be swallowed, and a
+    second click on a toggle that did take would turn it off again, so the toggle's
+    own checked state decides whether to click, and the click is repeated until
+    the revealed widget is there."""
+    box = page.get_by_label(label, exact=True)
+    deadline = time.monotonic() + timeout / 1000
+    while True:
+        wait_idle(page)
+        if not box.is_checked():
+            page.get_by_text(label, exact=True).click()
+            wait_idle(page)
+        try:
+            page.get_by_label(then, exact=True).wait_for(timeout=15_000)
+            return
+        except Exception:
+            if time.monotonic() > deadline:
+                raise
+
+
 def screenshot(page, name: str) -> Path:
     ARTIFACTS.mkdir(exist_ok=True)
     path = ARTIFACTS / f"{name}.png"

@@ -28,6 +28,7 @@ from tests.browser import (
     require_browser,
     running_app,
     screenshot,
+    switch_on,
     wait_idle,
     wait_text,
 )
@@ -220,8 +221,7 @@ def test_two_sessions_at_once_see_only_their_own_data_point_and_policy(tmp_path,
             page = u["page"]
             open_page(page, "Decide", "Recommended operating point")
             page.get_by_text("Policy: objective, costs").click()
-            page.get_by_text("Price the errors").click()
-            wait_idle(page)
+            switch_on(page, "Price the errors", then="Unit")
             box = page.get_by_label("Unit", exact=True)
             box.fill(u["unit"])
             box.press("Enter")
