@@ -165,8 +165,8 @@ class _PoissonTable:
     exp(x log v - v - lgamma(x + 1)), and a guide: for bucket j of 2 (K + 2)
     equal slices of [0, 1), a lower bound of the first x with F(x) > j / M.
     A draw is x = the first x with F(x) > u for one uniform u: start at the
-    guide, one step up, then bisection up to the bucket's end (exact: only
-    comparisons with F are used). u >= F(K) (probability below 1e-20) draws
+    guide and walk up (exact: only comparisons with F are used; a compiled
+    loop, :func:`core.bootstrap_kernels.poisson_lookup`). u >= F(K) (probability below 1e-20) draws
     from the tail X | X > K by sequential inversion, so nothing is truncated.
     Means above the cap, or beyond the table budget, use ``Generator.poisson``.
     About 10 vectorised operations per cell instead of a Poisson rejection
@@ -240,41 +240,17 @@ class _PoissonTable:
 
     def lookup(self, U: np.ndarray):
         """Tabled counts for uniforms ``U`` (R, n_tabled): ``(X, tail)`` where ``tail`` lists
-        the flat positions that fell beyond the table (to be drawn by :meth:`fill_tail`)."""
-        R, k = U.shape
-        F, G = self.F, self.G
-        j = (U * self.cell_M).astype(np.intp)
-        j += self.cell_goff
-        fi = G[j].ravel()
-        u = U.ravel()
-        j = j.ravel()
-        act = np.flatnonzero(F[fi] <= u)  # the answer is past the guide
-        moved = act
-        if act.size:
-            fi[act] += 1
-            sub = F[fi[act]] <= u[act]
-            act = act[sub]
-        if act.size:  # bisection between F[lo] <= u and the bucket's end (or the sentinel)
-            ua = u[act]
-            lo = fi[act]
-            top = self.cell_top[act % k]
-            hi = np.minimum(G[j[act] + 1] + 1, top)
-            past = F[hi] <= ua
-            hi[past] = top[past]
-            while True:
-                wide = hi - lo > 1
-                if not wide.any():
-                    break
-                mid = (lo + hi) >> 1
-                le = F[mid] <= ua
-                lo = np.where(le, mid, lo)
-                hi = np.where(le, hi, mid)
-            fi[act] = hi
-        X = fi.reshape(R, k)
-        X -= self.cell_foff
-        tail = np.zeros(0, dtype=np.intp)
-        if moved.size:  # only a cell that moved past its guide can reach the sentinel
-            tail = moved[fi[moved] == self.cell_past[moved % k]]
+        the flat positions that fell beyond the table (to be drawn by :meth:`fill_tail`).
+
+        Each count is the first table position at or after the guide's lower bound
+        whose F exceeds the uniform (:func:`core.bootstrap_kernels.poisson_lookup`)."""
+        from core.bootstrap_kernels import poisson_lookup
+
+        U = np.ascontiguousarray(U, dtype=np.float64)
+        X = np.empty(U.shape, dtype=np.int64)
+        n_tail = poisson_lookup(U, self.F, self.G, self.cell_M, self.cell_goff, self.cell_foff,
+                                self.cell_past, X)
+        tail = np.flatnonzero(X == self.cell_past) if n_tail else np.zeros(0, dtype=np.intp)
         return X, tail
 
     def fill_tail(self, g: np.random.Generator, x: np.ndarray, cols) -> None:
@@ -354,11 +330,10 @@ class _Units:
         self.small_cum = np.cumsum(mass[small].astype(np.int64))
         self.small_total = int(self.small_cum[-1]) if self.small_cum.size else 0
         self.small_singletons = bool(self.small_idx.size and np.all(mass[small] == 1))
-        # row -> unit of the small units, so a drawn row finds its unit by a gather
-        self.small_rows = None if self.small_singletons else np.repeat(
-            np.arange(self.small_idx.size,
-                      dtype=np.int32 if self.small_idx.size < 2**31 else np.int64),
-            mass[small].astype(np.int64))
+        # row -> small unit (empty: one row per unit), so a drawn row finds its unit by a gather
+        self.small_unit_of = (np.zeros(0, dtype=np.int64) if self.small_singletons
+                              else np.repeat(np.arange(self.small_idx.size, dtype=np.int64),
+                                             mass[small].astype(np.int64)))
         # large cells in order of mass (then position): the table draws then walk its
         # segments in order, which keeps them in cache (any fixed order is equally exact)
         self.large_idx = np.flatnonzero(large)
@@ -393,8 +368,12 @@ class _Units:
         return counts[0]
 
     def draw_rows(self, gens, ms, out: np.ndarray) -> None:
-        """:meth:`draw` for several replicates at once: row i of ``out`` (zeroed) gets
+        """:meth:`draw` for several replicates at once: row i of ``out`` gets
         Multinomial(ms[i]) counts from generator ``gens[i]`` alone.
+
+        Only the units' own columns are written (every one of them, so a
+        reused row needs no clearing); the columns of cells without mass in
+        this class are left as they are: zero in any row that started zeroed.
 
         Each generator makes the same calls in the same order as a lone
         :meth:`draw` (split between small and large cells, small rows, the
@@ -402,14 +381,19 @@ class _Units:
         the rows do not depend on how replicates are grouped; the table
         look-up runs once over all rows.
         """
+        from core.bootstrap_kernels import count_into
+
         R = len(gens)
         m_large = np.zeros(R, dtype=np.int64)
+        scratch = np.empty(self.small_idx.size, dtype=np.int64)
         tab = self.table
         U = np.zeros((R, tab.n_tabled)) if tab is not None else None
         X = None if tab is not None else np.zeros((R, self.large_idx.size), dtype=np.int64)
         for i in range(R):
             g, m = gens[i], int(ms[i])
             if m <= 0:
+                out[i, self.small_idx] = 0
+                out[i, self.large_idx] = 0
                 continue
             if self.large_idx.size == 0:
                 m_small = m
@@ -417,19 +401,17 @@ class _Units:
                 m_small = 0
             else:
                 m_small = int(g.binomial(m, self.small_share))
-            if m_small:
-                u = g.integers(0, self.small_total, m_small)
-                if self.small_singletons:
-                    out[i, self.small_idx] = np.bincount(u, minlength=self.small_idx.size)
-                else:
-                    out[i, self.small_idx] = np.bincount(self.small_rows[u],
-                                                         minlength=self.small_idx.size)
+            if self.small_idx.size:
+                u = g.integers(0, self.small_total, m_small) if m_small else self.small_idx[:0]
+                count_into(out[i], self.small_idx, self.small_unit_of, u, scratch)
             m_large[i] = m - m_small
             if m_large[i]:
                 if tab is not None:
                     g.random(out=U[i])
                 else:
                     X[i] = g.poisson(m_large[i] * self.large_share)
+        if self.large_idx.size:
+            out[np.flatnonzero(m_large == 0)[:, None], self.large_idx[None, :]] = 0
         if not m_large.any():
             return
         if tab is not None:  # Poisson(mass) per large cell: any Poisson means work
@@ -460,19 +442,18 @@ class _Units:
 
     def _correct(self, g, x, m):
         """Poisson counts ``x`` (any common scale of the masses) -> Multinomial(m) in place."""
+        from core.bootstrap_kernels import add_rows, remove_rows
+
         s = int(x.sum())
         if s < m:  # add m - s rows drawn in proportion to the cells
             if self.integer:
                 u = g.integers(0, int(self.large_cum[-1]), m - s)
             else:
                 u = g.random(m - s) * self.large_cum[-1]
-            u.sort()  # sorted keys: the binary searches share their paths (same counts)
-            j = np.minimum(np.searchsorted(self.large_cum, u, side="right"), x.shape[0] - 1)
-            x += np.bincount(j, minlength=x.shape[0])
+            u.sort()  # sorted: each lands in its cell by one walk (core.bootstrap_kernels)
+            add_rows(x, self.large_cum, u)
         elif s > m:  # remove a uniformly random s - m of the s drawn rows
-            pos = np.sort(g.choice(s, size=s - m, replace=False))
-            j = np.searchsorted(np.cumsum(x), pos, side="right")
-            x -= np.bincount(j, minlength=x.shape[0])
+            remove_rows(x, np.sort(g.choice(s, size=s - m, replace=False)))
 
     def to_cells(self, counts: np.ndarray):
         """Cell weight, squared weight and miss cost of drawn unit ``counts``."""
@@ -827,8 +808,9 @@ def event_cells(data, *, thresholds=(), weight_kind: str | None = None,
 class ReplicateChunk:
     """Replicates ``start..stop-1``: cell counts, one row per replicate.
 
-    ``events`` / ``non_events`` are (R, C) replicate cell weights (int64 when
-    they are whole counts: no weights, no costs);
+    ``events`` / ``non_events`` are (R, C) replicate cell weights (integers when
+    they are whole counts -- no weights, no costs: int32 below 2^31 cases, which
+    halves the memory a replicate moves, else int64; sums of them upcast);
     ``events_sq`` / ``non_events_sq`` (R, C) squared-weight sums (sampling
     weights only); ``event_cost`` (R, C) the replicate cells' miss cost.
     """
@@ -912,7 +894,7 @@ def _draw_block(eu: _Units, nu: _Units, design: str, seed: int, r0: int, mats) -
 
 def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
                      design: str = "cohort", *, chunk: int | None = None, start: int = 0,
-                     progress=None, n_jobs: int = 1):
+                     progress=None, n_jobs: int = 1, reuse: bool = False):
     """Yield :class:`ReplicateChunk` s of replicate cell counts, ``chunk`` replicates at a time.
 
     Replicate r uses ``numpy.random.default_rng([seed, r])`` alone, so the
@@ -921,6 +903,12 @@ def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, 
     them, while the caller works on the current one; numpy's generators and
     array operations release the GIL). ``progress(done, total)`` is called
     after each chunk. See the module docstring for the draws and their cost.
+
+    ``reuse=True``: the chunks' arrays are recycled (each chunk is overwritten
+    by the one after next, or by the next one with ``n_jobs=1``), which spares
+    the allocation and first touch of fresh pages -- a large part of a
+    replicate's cost with many cells. Use each chunk before asking for the
+    next one and keep no reference to its arrays (as :func:`bootstrap` does).
     """
     _check_design(design)
     n_rep = int(n_replicates)
@@ -933,14 +921,28 @@ def bootstrap_counts(cells: EventCells, n_replicates: int = DEFAULT_REPLICATES, 
     if int(n_jobs) < 1:
         raise InputError("n_jobs", f"must be at least 1, got {n_jobs!r}")
     eu, nu = cells._event_units, cells._nonevent_units
-    # plain cells hold whole counts: int64 (exact, and cumulative sums run far faster)
-    dtype = np.int64 if eu.plain and nu.plain else np.float64
+    # plain cells hold whole counts: integers (exact, and cumulative sums run far faster),
+    # 32 bits while every count fits
+    dtype = np.float64
+    if eu.plain and nu.plain:
+        dtype = np.int32 if eu.n_units + nu.n_units < 2**31 else np.int64
     track_sq, has_cost = eu.track_sq, eu.unit_cost is not None
 
-    def alloc(R):
+    def fresh(R):
         return (np.zeros((R, C), dtype=dtype), np.zeros((R, C), dtype=dtype),
                 np.zeros((R, C)) if track_sq else None, np.zeros((R, C)) if track_sq else None,
                 np.zeros((R, C)) if has_cost else None)
+
+    # with reuse: one set of blocks per chunk in flight, taken in turn (a drawn row writes
+    # every column it owns, and the columns it does not own stay zero)
+    spare = [fresh(size) for _ in range(1 if int(n_jobs) < 2 else 2)] if reuse else None
+    turn = itertools.count()
+
+    def alloc(R):
+        if spare is None:
+            return fresh(R)
+        mats = spare[next(turn) % len(spare)]
+        return tuple(None if M is None else M[:R] for M in mats)
 
     def part(mats, a, b):
         return tuple(None if M is None else M[a:b] for M in mats)
@@ -1011,26 +1013,6 @@ def roc_auc(tp, fp):
         return area / (P * N)
 
 
-def _roc_auc_cells(tp, events, non_events, mixed=None):
-    """:func:`roc_auc` from the cells: with TP_{i-1} = TP_i - E_i the trapezoids sum to
-    ``sum_i N_i TP_i - sum_i N_i E_i / 2`` (no temporary the size of the matrix).
-
-    ``mixed``: the cells that hold both events and non-events in the data (only there
-    can a replicate's N_i E_i be non-zero); None: all cells."""
-    P = tp[:, -1]
-    N = non_events.sum(axis=1)
-    if mixed is None:
-        ties = np.einsum("ij,ij->i", non_events, events)
-    elif mixed.size:
-        ties = np.einsum("ij,ij->i", np.take(non_events, mixed, axis=1),
-                         np.take(events, mixed, axis=1))
-    else:
-        ties = 0.0
-    area = np.einsum("ij,ij->i", non_events, tp[:, 1:]) - 0.5 * ties
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return area / (P * N)
-
-
 def average_precision(tp, fp):
     """Average precision of each replicate row: ``sum_i (R_i - R_{i-1}) P_i``.
 
@@ -1043,19 +1025,6 @@ def average_precision(tp, fp):
     with np.errstate(invalid="ignore", divide="ignore"):
         prec = np.where(dtp > 0, tp[:, 1:] / np.where(flagged > 0, flagged, 1.0), 0.0)
         return np.einsum("ij,ij->i", dtp, prec) / P
-
-
-def _average_precision_ties(tp, fp, events, tie):
-    """:func:`average_precision` from the cells: recall moves only in the tie cells, so
-    ``sum_i E_i TP_i / (TP_i + FP_i) / P`` over every cell equals the sum over the
-    ties (``tie``: kept for the callers; the other cells hold no event). One pass over
-    the matrix without a gather (about twice as fast as gathering the tie columns)."""
-    t = tp[:, 1:]
-    flagged = t + fp[:, 1:]
-    np.maximum(flagged, 1e-300, out=flagged)  # 0 only where the cell holds no event
-    np.divide(t, flagged, out=flagged)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.einsum("ij,ij->i", events, flagged) / tp[:, -1]
 
 
 def counts_at(tp, fp, columns):
@@ -1297,7 +1266,9 @@ def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
         Levels for the PR and ROC bands.
     collectors : sequence
         Objects with ``update(chunk, tp, fp)`` called on every chunk (e.g.
-        the threshold-stability collector), so one pass serves them all.
+        the threshold-stability collector), so one pass serves them all. The
+        chunk's and ``tp`` / ``fp``'s arrays are recycled for later chunks:
+        copy what must outlive the call.
     cells : EventCells, optional
         Reuse cells already built from ``data`` (they must keep ``thresholds``).
     n_jobs : int, default 1
@@ -1313,18 +1284,23 @@ def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
         cells = event_cells(data, thresholds=ths, sampling_weights=sampling_weights)
     cols, n_rep, rg, fg, (auc, ap, pb, tb, Ps, Ns, at_tp, at_fp, at_cost, at_pi) = _prepare(
         cells, ths, costs, prevalence, n_replicates, recall_grid, fpr_grid)
-    tie = np.flatnonzero(cells.is_event)
-    mixed = np.flatnonzero((cells.events > 0) & (cells.non_events > 0))
+    from core.bootstrap_kernels import cell_statistics
+
+    mixed = (cells.events > 0) & (cells.non_events > 0)
+    size = _default_chunk(cells.n_cells) if chunk is None else int(chunk)
+    tp_buf = np.empty((max(1, min(size, n_rep)), cells.n_cells + 1))
+    fp_buf = np.empty_like(tp_buf)
     for ch in bootstrap_counts(cells, n_rep, seed, design, chunk=chunk, progress=progress,
-                               n_jobs=n_jobs):
-        tp, fp = ch.cumulative()
+                               n_jobs=n_jobs, reuse=True):
         s = slice(ch.start, ch.stop)
+        # cumulative counts, AUC, AP and both bands in one compiled pass per replicate
+        # (the same values as roc_auc / average_precision / precision_at_recall /
+        # tpr_at_fpr on ch.cumulative(): see core.bootstrap_kernels)
+        tp, fp = tp_buf[: ch.n], fp_buf[: ch.n]
+        cell_statistics(ch.events, ch.non_events, mixed, rg, fg, tp, fp, auc[s], ap[s], pb[s],
+                        tb[s])
         P, N = _totals(tp, fp)
         Ps[s], Ns[s] = P, N
-        auc[s] = _roc_auc_cells(tp, ch.events, ch.non_events, mixed)
-        ap[s] = _average_precision_ties(tp, fp, ch.events, tie)
-        pb[s] = precision_at_recall(tp, fp, rg)
-        tb[s] = tpr_at_fpr(tp, fp, fg)
         _record_points(ch, tp, fp, P, N, s, cols, costs, prevalence, at_tp, at_fp, at_cost, at_pi)
         for c in collectors:
             c.update(ch, tp, fp)
