@@ -12,7 +12,7 @@ Goals (issue 6):
 
 Data: 1M rows, 2 % events, scores N(1, 1) for events and N(0, 1) for the
 rest -- once as continuous float64 scores (every event its own score: about
-20,000 event cells and as many gap cells) and once as probabilities rounded
+20,000 cells, one per event with the non-events before it) and once as probabilities rounded
 to 4 decimals (about 6,500 event cells). The policy is a typical governance
 rule: recall at least 0.8 with 95 % confidence, the fewest flags among the
 points that meet it. Times are the best of ``repeats`` runs.

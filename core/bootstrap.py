@@ -5,12 +5,20 @@ positives, so everything Fulcrum decides depends on the data only through
 the counts at the *event points* (the distinct scores that hold an event,
 plus "flag none"). Cut the sorted data into cells, strictest first:
 
-* a *tie cell* for every event point: the events and the non-events that
-  share that score (ties move together, so they keep their own cell);
-* a *gap cell* for each run of non-event scores between two consecutive
-  event scores (and after the loosest one);
-* extra cuts at any threshold whose counts are wanted (a pre-specified
-  threshold that is not an event score).
+* a cell for every event point: its events, and the run of non-event scores
+  between it and the previous (stricter) event point -- a *step*: on the ROC
+  curve those non-events come first (horizontal), then the events
+  (vertical);
+* where non-events share the event score (ties move together), the tie
+  keeps a cell of its own (the ties' diagonal) and the run before it is a
+  *gap cell* of non-events only;
+* a gap cell after the loosest event score, and extra cuts at any threshold
+  whose counts are wanted (a pre-specified threshold that is not an event
+  score).
+
+With continuous scores almost no event score is shared, so there is about
+one cell per event (half as many cells as a separate gap cell before every
+event would make, and half the work per replicate).
 
 Drawing n rows with replacement puts a Multinomial(n, cell counts / n) number
 of rows in the cells, separately for events and non-events within each
@@ -18,8 +26,9 @@ cell. So drawing the *cell counts* from that multinomial gives exactly the
 distribution of row resampling for every statistic that depends only on the
 counts at the cell boundaries: the choice of every objective and rule (with
 or without a confidence bound), ROC AUC (the trapezoids through every point
-of a row curve lie on the segments between cell boundaries: gap cells are
-horizontal, tie cells the diagonal of the ties), average precision, precision
+of a row curve run through the cell boundaries: gap cells are horizontal,
+step cells horizontal then vertical, tie cells the diagonal of the ties),
+average precision, precision
 at a recall level, TPR at an FPR level, and every metric, expected cost and
 flag count at a cell boundary. Designs:
 
@@ -70,15 +79,16 @@ Poisson sampler; fractional masses (scaled weights) use numpy's Poisson.
 
 Cost per replicate: one uniform (or Poisson draw) per large cell, about one
 uniform integer per row of the small cells, O(sqrt(n)) for the correction,
-then O(cells) vectorised statistics (integer cumulative sums, two dot
-products for the AUC, one for the AP, one binary search per band) -- no
-sort and nothing of order n (except sampling weights with rows, which
-resample every row). Building the tables costs a few tens of milliseconds
-once per data. Measured (CPU time, one thread, on a shared 2-core machine)
-with 1M rows at 2 % events (see ``benchmarks/bench_bootstrap.py``): about
-0.45 ms per replicate with bands, AUC, AP and the policy's choice when the
-scores have 4 decimals (7,500 cells), about 1 ms with continuous scores
-(every event its own score: 39,000 cells), against 0.26-0.38 s per
+then one O(cells) pass for the cumulative sums, AUC, AP and both bands
+(compiled loops: :mod:`core.bootstrap_kernels`; the random numbers stay
+numpy's) and the policy's choice on its candidate window -- no sort and
+nothing of order n (except sampling weights with rows, which resample every
+row). Building the tables costs a few tens of milliseconds once per data.
+Measured (CPU time, one thread, on this project's 2-core machine) with 1M
+rows at 2 % events (see ``benchmarks/bench_bootstrap.py``): about 0.33 ms
+per replicate with bands, AUC, AP and the policy's choice when the scores
+have 4 decimals (about 6,500 cells), about 0.65 ms with continuous scores
+(every event its own score: about 20,000 cells), against 0.28-0.39 s per
 replicate for resampling the rows and running scikit-learn's two curves.
 With ``n_jobs=2`` a worker thread draws the next replicates while the
 statistics of the current ones are computed.
@@ -498,7 +508,14 @@ class EventCells:
     events, non_events : ndarray (C,)
         (Weighted) events and non-events in each cell.
     is_event : ndarray (C,) of bool
-        True for a tie cell (its boundary is an event point).
+        True for a cell whose boundary is an event point.
+    steps : ndarray (C,) of bool
+        True for a step cell: an event point with non-events before it (a run
+        of non-event scores) and none at its own score; on the ROC curve its
+        non-events come before its events.
+    step_thresholds : ndarray (C,)
+        For a step cell, the loosest score of its non-event run (the curve's
+        point just before the event point); NaN elsewhere.
     events_sq, non_events_sq : ndarray (C,) or None
         Sums of squared weights (sampling weights).
     event_cost : ndarray (C,) or None
@@ -520,6 +537,8 @@ class EventCells:
     is_event: np.ndarray
     higher_is_riskier: bool
     curve: Curve
+    steps: np.ndarray = None
+    step_thresholds: np.ndarray = None
     weight_kind: str | None = None
     sampling_method: str | None = None
     events_sq: np.ndarray | None = None
@@ -596,22 +615,49 @@ class EventCells:
                  non_events_sq=None, drop_empty: bool = True) -> Curve:
         """A Curve whose points are the cell boundaries, from (replicate) cell counts.
 
-        With no arguments this is the source data's curve at its boundaries:
-        the same counts at every event point, the same ROC AUC and average
-        precision. Cells with no case are dropped (they are not points of a
-        row curve) unless ``drop_empty=False``.
+        A step cell gives two points: its non-events at the loosest score of
+        their run, then its events at the event score. With no arguments this
+        is the source data's curve at its boundaries: the same counts at every
+        event point, the same ROC AUC and average precision. Points with no
+        case are dropped (they are not points of a row curve) unless
+        ``drop_empty=False``.
         """
         e = self.events if events is None else np.asarray(events, dtype=np.float64)
         n = self.non_events if non_events is None else np.asarray(non_events, dtype=np.float64)
         if events is None:
             event_cost, events_sq = self.event_cost, self.events_sq
             non_events_sq = self.non_events_sq
+
+        def f(a):
+            return None if a is None else np.asarray(a, dtype=np.float64)
+
+        event_cost, events_sq, non_events_sq = f(event_cost), f(events_sq), f(non_events_sq)
+        st = np.flatnonzero(self.steps)
+        if st.size:  # a step cell's non-events first, at their own loosest score
+            at = st  # np.insert puts each new point before the step cell's own
+            zero = np.zeros(st.size)
+            thr = np.insert(self.thresholds, at, self.step_thresholds[st])
+            e2 = np.insert(np.asarray(e, dtype=np.float64), at, zero)
+            n1 = np.asarray(n, dtype=np.float64).copy()
+            gap = n1[st].copy()
+            n1[st] = 0.0
+            n2 = np.insert(n1, at, gap)
+            event_cost = None if event_cost is None else np.insert(event_cost, at, zero)
+            events_sq = None if events_sq is None else np.insert(events_sq, at, zero)
+            if non_events_sq is not None:
+                q = non_events_sq.copy()
+                gq = q[st].copy()
+                q[st] = 0.0
+                non_events_sq = np.insert(q, at, gq)
+            e, n = e2, n2
+        else:
+            thr = self.thresholds
         keep = (e + n > 0) if drop_empty else np.ones(e.shape[0], dtype=bool)
 
         def k(a):
-            return None if a is None else np.asarray(a, dtype=np.float64)[keep]
+            return None if a is None else a[keep]
 
-        return Curve.from_counts(self.thresholds[keep], e[keep], n[keep],
+        return Curve.from_counts(thr[keep], e[keep], n[keep],
                                  higher_is_riskier=self.higher_is_riskier, event_cost=k(event_cost),
                                  events_sq=k(events_sq), non_events_sq=k(non_events_sq))
 
@@ -640,12 +686,14 @@ class EventCells:
 
 
 def _boundaries(curve: Curve, extra_points) -> np.ndarray:
-    """Point indices (>= 1) that end a cell: each event point, the point just
-    before it, every extra point and the last point."""
+    """Point indices (>= 1) that end a cell: each event point, the point just before an
+    event point that non-events share (its tie keeps a cell of its own), every extra
+    point and the last point."""
     d = curve.n_points - 1
     ev = np.flatnonzero(curve.event_point_mask)
     ev = ev[ev > 0]
-    parts = [ev, ev - 1, np.asarray(extra_points, dtype=np.int64), [d]]
+    tied = ev[curve.fp[ev] > curve.fp[ev - 1]]
+    parts = [ev, tied - 1, np.asarray(extra_points, dtype=np.int64), [d]]
     b = np.unique(np.concatenate([np.asarray(p, dtype=np.int64) for p in parts]))
     return b[b >= 1]
 
@@ -722,6 +770,12 @@ def event_cells(data, *, thresholds=(), weight_kind: str | None = None,
     ev_cells = _diff0(curve.tp, b)
     ne_cells = _diff0(curve.fp, b)
     is_event = curve.event_point_mask[b] & (ev_cells > 0)
+    # a step: an event point whose cell also holds a run of non-event points before it
+    # (none of them at the event score itself, or that tie would have its own cell)
+    first = np.concatenate([[1], b[:-1] + 1])  # each cell's first point
+    steps = is_event & (ne_cells > 0) & (first < b)
+    step_thr = np.full(C, np.nan)
+    step_thr[steps] = curve.thresholds[b[steps] - 1]
     ev_sq = ne_sq = None
     if curve.tp_sq is not None:
         ev_sq = _diff0(curve.tp_sq, b)
@@ -797,6 +851,7 @@ def event_cells(data, *, thresholds=(), weight_kind: str | None = None,
         thresholds=ro(curve.thresholds[b]), index=ro(b), events=ro(ev_cells),
         non_events=ro(ne_cells),
         is_event=ro(is_event), higher_is_riskier=curve.higher_is_riskier, curve=curve,
+        steps=ro(steps), step_thresholds=ro(step_thr),
         weight_kind=wk, sampling_method=method, events_sq=ro(ev_sq), non_events_sq=ro(ne_sq),
         event_cost=ro(cost), cost_exact=cost_exact, _event_units=ev_units, _nonevent_units=ne_units,
     )
@@ -999,16 +1054,24 @@ def _totals(tp, fp):
     return tp[:, -1], fp[:, -1]
 
 
-def roc_auc(tp, fp):
+def roc_auc(tp, fp, steps=None):
     """ROC AUC of each replicate row: trapezoids through (FP, TP) at every boundary.
 
-    ``tp``, ``fp``: (R, C + 1) cumulative counts with "flag none" first.
-    ``sum_i (FP_i - FP_{i-1}) (TP_i + TP_{i-1}) / (2 P N)``; NaN when a
-    replicate has no events or no non-events. Equals
-    :attr:`core.curve.Curve.roc_auc` of the replicate's row curve.
+    ``tp``, ``fp``: (R, C + 1) cumulative counts with "flag none" first;
+    ``steps``: the cells' :attr:`EventCells.steps` (their non-events come
+    before their events: a horizontal then a vertical edge, no diagonal).
+    ``sum_i (FP_i - FP_{i-1}) (TP_i + TP_{i-1}) / (2 P N)``, with ``TP_{i-1}``
+    for both ends in a step cell; NaN when a replicate has no events or no
+    non-events. Equals :attr:`core.curve.Curve.roc_auc` of the replicate's
+    row curve.
     """
     P, N = _totals(tp, fp)
-    area = np.einsum("ij,ij->i", np.diff(fp, axis=1), tp[:, 1:] + tp[:, :-1]) / 2.0
+    dfp = np.diff(fp, axis=1)
+    height = tp[:, 1:] + tp[:, :-1]
+    if steps is not None and np.any(steps):
+        st = np.flatnonzero(steps)
+        height[:, st] = 2.0 * tp[:, st]  # column st is the point before the step cell st
+    area = np.einsum("ij,ij->i", dfp, height) / 2.0
     with np.errstate(invalid="ignore", divide="ignore"):
         return area / (P * N)
 
@@ -1057,13 +1120,14 @@ def precision_at_recall(tp, fp, recall_grid=DEFAULT_RECALL_GRID):
     return out
 
 
-def tpr_at_fpr(tp, fp, fpr_grid=DEFAULT_FPR_GRID):
+def tpr_at_fpr(tp, fp, fpr_grid=DEFAULT_FPR_GRID, steps=None):
     """TPR of each replicate's ROC curve at each FPR level (linear between boundaries).
 
     Between two boundaries the row curve is a straight segment (horizontal in
-    a gap cell, the ties' diagonal in a tie cell); at a vertical step the top
-    is taken. One binary search per replicate row. (R, G); NaN for a
-    replicate without events or without non-events.
+    a gap cell, the ties' diagonal in a tie cell) or, in a step cell
+    (``steps``: :attr:`EventCells.steps`), horizontal and then vertical; at a
+    vertical step the top is taken. One binary search per replicate row.
+    (R, G); NaN for a replicate without events or without non-events.
     """
     f = np.asarray(fpr_grid, dtype=np.float64)
     R, M = tp.shape
@@ -1078,6 +1142,8 @@ def tpr_at_fpr(tp, fp, fpr_grid=DEFAULT_FPR_GRID):
         x0, x1 = fp[i, j0], fp[i, j1]
         y0, y1 = tp[i, j0], tp[i, j1]
         step = x1 > x0
+        if steps is not None:  # horizontal through a step cell (its events at its end)
+            step &= ~np.asarray(steps, dtype=bool)[np.minimum(j0, M - 2)]
         slope = np.where(step, (y1 - y0) / np.where(step, x1 - x0, 1.0), 0.0)
         out[i] = np.minimum((y0 + (x - x0) * slope) / P, 1.0)
     return out
@@ -1172,6 +1238,34 @@ class BootstrapResult:
     def describe(self) -> str:
         return (f"exact cell bootstrap, {self.n_replicates:,} replicates, design {self.design}, "
                 f"seed {self.seed}; {self.cells.describe()}")
+
+
+class _ChunkStatistics:
+    """Cumulative counts, AUC, AP and both bands of each chunk in one compiled pass per
+    replicate (:func:`core.bootstrap_kernels.cell_statistics`: the values of
+    :func:`roc_auc`, :func:`average_precision`, :func:`precision_at_recall` and
+    :func:`tpr_at_fpr` on ``chunk.cumulative()``), into buffers reused from chunk to
+    chunk: the ``tp`` / ``fp`` it returns are overwritten by the next call."""
+
+    def __init__(self, cells: EventCells, n_replicates: int, chunk, recall_grid, fpr_grid):
+        both = (cells.events > 0) & (cells.non_events > 0)
+        self.tie_weight = np.where(cells.steps, 1.0, np.where(both, 0.5, 0.0))
+        self.steps = np.ascontiguousarray(cells.steps, dtype=np.bool_)
+        self.rg, self.fg = recall_grid, fpr_grid
+        size = _default_chunk(cells.n_cells) if chunk is None else int(chunk)
+        self.tp = np.empty((max(1, min(size, int(n_replicates))), cells.n_cells + 1))
+        self.fp = np.empty_like(self.tp)
+
+    def __call__(self, ch, auc, ap, pb, tb):
+        from core.bootstrap_kernels import cell_statistics
+
+        if ch.n > self.tp.shape[0]:
+            self.tp = np.empty((ch.n, self.tp.shape[1]))
+            self.fp = np.empty_like(self.tp)
+        tp, fp = self.tp[: ch.n], self.fp[: ch.n]
+        cell_statistics(ch.events, ch.non_events, self.tie_weight, self.steps, self.rg, self.fg,
+                        tp, fp, auc, ap, pb, tb)
+        return tp, fp
 
 
 def _cost_per_case(tp, fp, P, N, cost_cum, cols, costs, pi):
@@ -1284,21 +1378,11 @@ def bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int = 0,
         cells = event_cells(data, thresholds=ths, sampling_weights=sampling_weights)
     cols, n_rep, rg, fg, (auc, ap, pb, tb, Ps, Ns, at_tp, at_fp, at_cost, at_pi) = _prepare(
         cells, ths, costs, prevalence, n_replicates, recall_grid, fpr_grid)
-    from core.bootstrap_kernels import cell_statistics
-
-    mixed = (cells.events > 0) & (cells.non_events > 0)
-    size = _default_chunk(cells.n_cells) if chunk is None else int(chunk)
-    tp_buf = np.empty((max(1, min(size, n_rep)), cells.n_cells + 1))
-    fp_buf = np.empty_like(tp_buf)
+    stats = _ChunkStatistics(cells, n_rep, chunk, rg, fg)
     for ch in bootstrap_counts(cells, n_rep, seed, design, chunk=chunk, progress=progress,
                                n_jobs=n_jobs, reuse=True):
         s = slice(ch.start, ch.stop)
-        # cumulative counts, AUC, AP and both bands in one compiled pass per replicate
-        # (the same values as roc_auc / average_precision / precision_at_recall /
-        # tpr_at_fpr on ch.cumulative(): see core.bootstrap_kernels)
-        tp, fp = tp_buf[: ch.n], fp_buf[: ch.n]
-        cell_statistics(ch.events, ch.non_events, mixed, rg, fg, tp, fp, auc[s], ap[s], pb[s],
-                        tb[s])
+        tp, fp = stats(ch, auc[s], ap[s], pb[s], tb[s])
         P, N = _totals(tp, fp)
         Ps[s], Ns[s] = P, N
         _record_points(ch, tp, fp, P, N, s, cols, costs, prevalence, at_tp, at_fp, at_cost, at_pi)

@@ -27,21 +27,22 @@ _jit = numba.njit(cache=True, nogil=True)
 
 
 @_jit
-def cell_statistics(E, N, mixed, recall_grid, fpr_grid, tp, fp, auc, ap, pb, tb):  # pragma: no cover
+def cell_statistics(E, N, tie_weight, steps, recall_grid, fpr_grid, tp, fp, auc, ap, pb, tb):  # noqa: E501 pragma: no cover
     """Cumulative counts, ROC AUC, average precision and both bands of every replicate.
 
     ``E``, ``N``: (R, C) replicate cell counts of events and non-events;
-    ``mixed``: (C,) bool, the cells holding both classes in the data. Writes
+    ``tie_weight``: (C,) 1/2 for a tie cell holding both classes, 1 for a step
+    cell (``EventCells.steps``), 0 elsewhere; ``steps``: (C,) bool. Writes
     ``tp``, ``fp`` (R, C + 1): cumulative counts with "flag none" first
     (``ReplicateChunk.cumulative``); ``auc`` (R,): ``(sum_i N_i TP_i -
-    sum_mixed N_i E_i / 2) / (P N)``, the trapezoids of ``roc_auc`` with
-    ``TP_{i-1} = TP_i - E_i`` (a replicate's N_i E_i is non-zero only in a mixed
-    cell); ``ap`` (R,): ``sum_i E_i TP_i / (TP_i + FP_i) / P`` over the cells
+    sum_i w_i N_i E_i) / (P N)``, the edges of ``roc_auc`` with ``TP_{i-1} =
+    TP_i - E_i`` (a tie's diagonal halves its N_i E_i, a step's horizontal
+    edge removes all of it; elsewhere a replicate's N_i E_i is zero); ``ap`` (R,): ``sum_i E_i TP_i / (TP_i + FP_i) / P`` over the cells
     with an event (``average_precision``: recall moves only there); ``pb``
     (R, G1): precision at the first column with ``TP >= (r - 1e-12) P``
     (``precision_at_recall``: its binary search becomes one walk, the grid
-    being sorted); ``tb`` (R, G2): TPR at each FPR level, linear
-    between the last column with ``FP <= f N`` and the next
+    being sorted); ``tb`` (R, G2): TPR at each FPR level, linear between the
+    last column with ``FP <= f N`` and the next, flat through a step cell
     (``tpr_at_fpr``). NaN where a replicate lacks a class, as there.
     """
     R, C = E.shape
@@ -64,13 +65,13 @@ def cell_statistics(E, N, mixed, recall_grid, fpr_grid, tp, fp, auc, ap, pb, tb)
             tp[i, j + 1] = t
             fp[i, j + 1] = f
             area += n * t
-            if mixed[j]:
-                ties += n * e
+            if tie_weight[j] != 0.0:
+                ties += tie_weight[j] * (n * e)
             if e > 0:
                 apsum += e * (t / (t + f))
         P = tp[i, C]
         Nn = fp[i, C]
-        auc[i] = (area - 0.5 * ties) / (P * Nn) if (P > 0 and Nn > 0) else np.nan
+        auc[i] = (area - ties) / (P * Nn) if (P > 0 and Nn > 0) else np.nan
         ap[i] = apsum / P if P > 0 else np.nan
         if P > 0:
             k = 0
@@ -91,7 +92,7 @@ def cell_statistics(E, N, mixed, recall_grid, fpr_grid, tp, fp, auc, ap, pb, tb)
                 x0 = fp[i, k]
                 x1 = fp[i, j1]
                 y0 = tp[i, k]
-                slope = (tp[i, j1] - y0) / (x1 - x0) if x1 > x0 else 0.0
+                slope = (tp[i, j1] - y0) / (x1 - x0) if (x1 > x0 and not steps[k]) else 0.0
                 v = (y0 + (x - x0) * slope) / P
                 tb[i, g] = v if v < 1.0 else 1.0
         else:
@@ -177,9 +178,9 @@ def warm_up() -> None:
     grid = np.zeros(1)
     out = (np.zeros((1, 2)), np.zeros((1, 2)), np.zeros(1), np.zeros(1), np.zeros((1, 1)),
            np.zeros((1, 1)))
-    mixed = np.zeros(1, dtype=np.bool_)
+    weight, steps = np.zeros(1), np.zeros(1, dtype=np.bool_)
     for m in (i4, i8, f8):
-        cell_statistics(m, m, mixed, grid, grid, *out)
+        cell_statistics(m, m, weight, steps, grid, grid, *out)
     idx = np.zeros(1, dtype=np.int64)
     for row in (np.zeros(1, dtype=np.int32), np.zeros(1, dtype=np.int64), np.zeros(1)):
         count_into(row, idx, idx, idx, np.zeros(1, dtype=np.int64))

@@ -66,15 +66,12 @@ from core.bootstrap import (
     BootstrapResult,
     EventCells,
     ReplicateChunk,
+    _ChunkStatistics,
     _points_by_threshold,
     _prepare,
     _record_points,
-    average_precision,
     event_cells,
     percentile_interval,
-    precision_at_recall,
-    roc_auc,
-    tpr_at_fpr,
 )
 from core.errors import InputError
 
@@ -481,15 +478,12 @@ def cluster_bootstrap(data, *, n_replicates: int = DEFAULT_REPLICATES, seed: int
         cells = event_cells(data, thresholds=ths)
     cols, n_rep, rg, fg, (auc, ap, pb, tb, Ps, Ns, at_tp, at_fp, at_cost, at_pi) = _prepare(
         cells, ths, costs, prevalence, n_replicates, recall_grid, fpr_grid)
+    stats = _ChunkStatistics(cells, n_rep, chunk, rg, fg)
     for ch in cluster_bootstrap_counts(data, cells, n_rep, seed, chunk=chunk, progress=progress):
-        tp, fp = ch.cumulative()
         s = slice(ch.start, ch.stop)
+        tp, fp = stats(ch, auc[s], ap[s], pb[s], tb[s])
         P, N = tp[:, -1], fp[:, -1]
         Ps[s], Ns[s] = P, N
-        auc[s] = roc_auc(tp, fp)
-        ap[s] = average_precision(tp, fp)
-        pb[s] = precision_at_recall(tp, fp, rg)
-        tb[s] = tpr_at_fpr(tp, fp, fg)
         _record_points(ch, tp, fp, P, N, s, cols, costs, prevalence, at_tp, at_fp, at_cost, at_pi)
         for c in collectors:
             c.update(ch, tp, fp)

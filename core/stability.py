@@ -18,7 +18,7 @@ The choice is made for all replicates of a chunk at once, vectorised over
 (replicates x cell boundaries), with exactly the formulas of
 :func:`core.choose.choose` (the test suite checks the identity against
 ``choose()`` on each replicate's own curve): candidates are "flag none" and
-the boundaries whose tie cell holds an event in the replicate (its event
+the boundaries whose event-point cell holds an event in the replicate (its event
 points); objective and rules are judged at the deployment prevalence (the
 policy's, or each replicate's own validation prevalence when the policy
 gives none); ties go to fewer flags with relative tolerance 1e-12. What is
@@ -72,7 +72,8 @@ class ReplicateChooser:
         self.policy = policy
         self.pi_fixed = rp.prevalence if rp.sources.get("deployment.prevalence") == "file" else None
         self.sampling = cells.weight_kind == "sampling" and cells.events_sq is not None
-        # candidate columns: flag none and the tie cells (a replicate's event points are among them)
+        # candidate columns: flag none and the event-point cells (a replicate's event points are
+        # among them)
         self.cand_cols = np.concatenate([[0], np.flatnonzero(cells.is_event) + 1])
         self.cap_ok = None
         self.notes: list[str] = []
@@ -118,7 +119,7 @@ class ReplicateChooser:
             fpr = f / N
             pi = (np.full((R, 1), self.pi_fixed) if self.pi_fixed is not None else P / (P + N))
         tpp, fpp = pi * tpr, (1.0 - pi) * fpr
-        # candidates: "flag none" and the tie cells holding an event in the replicate
+        # candidates: "flag none" and the event-point cells holding an event in the replicate
         ok = np.empty(t.shape, dtype=bool)
         ok[:, 0] = True
         if events is not None:

@@ -88,7 +88,10 @@ def test_cells_keep_every_event_point_auc_and_ap(decimals, higher):
     assert rc.average_precision == pytest.approx(skm.average_precision_score(y, score), rel=1e-12)
     assert rc.roc_auc == pytest.approx(c.roc_auc, rel=1e-12)
     # the vectorised statistics on the data itself (one "replicate")
-    assert roc_auc(tp[None, :], fp[None, :])[0] == pytest.approx(c.roc_auc, rel=1e-12)
+    assert roc_auc(tp[None, :], fp[None, :], cells.steps)[0] == pytest.approx(c.roc_auc,
+                                                                              rel=1e-12)
+    if decimals is None:  # continuous scores: about one cell per event, most of them steps
+        assert cells.n_cells <= cells.n_event_cells + 1 and cells.steps.sum() > 0
     assert average_precision(tp[None, :], fp[None, :])[0] == pytest.approx(c.average_precision,
                                                                            rel=1e-12)
 
@@ -111,7 +114,8 @@ def test_bands_on_cells_equal_bands_on_every_point():
                            / (fpr_full[i + 1] - fpr_full[i]))
         else:
             ref_roc.append(tpr_full[i])
-    np.testing.assert_allclose(tpr_at_fpr(tp, fp)[0], ref_roc, rtol=1e-9, atol=1e-12)
+    np.testing.assert_allclose(tpr_at_fpr(tp, fp, steps=cells.steps)[0], ref_roc, rtol=1e-9,
+                               atol=1e-12)
     ref_pr = []
     for r in DEFAULT_RECALL_GRID:
         i = np.flatnonzero(tpr_full >= r - 1e-12)[0]
@@ -128,13 +132,15 @@ def test_replicate_statistics_equal_the_replicate_curve():
     col = cells.column(0.35)
     for ch in bootstrap_counts(cells, 40, seed=5, chunk=16):
         tp, fp = ch.cumulative()
-        auc, ap = roc_auc(tp, fp), average_precision(tp, fp)
+        auc, ap = roc_auc(tp, fp, cells.steps), average_precision(tp, fp)
         t, f, fn, tn = counts_at(tp, fp, [col])
         for i in range(ch.n):
             e, n = ch.events[i], ch.non_events[i]
             ys = np.r_[np.ones(int(e.sum())), np.zeros(int(n.sum()))]
+            # a step cell's non-events sit at the loosest score of their run
+            ne_score = np.where(cells.steps, cells.step_thresholds, cells.thresholds)
             ss = np.r_[np.repeat(cells.thresholds, e.astype(int)),
-                       np.repeat(cells.thresholds, n.astype(int))]
+                       np.repeat(ne_score, n.astype(int))]
             assert auc[i] == pytest.approx(skm.roc_auc_score(ys, ss), rel=1e-12)
             assert ap[i] == pytest.approx(skm.average_precision_score(ys, ss), rel=1e-12)
             flagged = ss >= 0.35
@@ -151,7 +157,7 @@ def test_one_pass_statistics_equal_the_public_functions():
     width = res.cells.n_cells + 1
     tp, fp = tp[:, :width], tp[:, width:]
     np.testing.assert_allclose(res.average_precision, average_precision(tp, fp), rtol=1e-12)
-    np.testing.assert_allclose(res.roc_auc, roc_auc(tp, fp), rtol=1e-12)
+    np.testing.assert_allclose(res.roc_auc, roc_auc(tp, fp, res.cells.steps), rtol=1e-12)
 
 
 def test_threshold_off_the_boundaries_is_refused():
@@ -343,7 +349,7 @@ def test_bootstrap_bands_cover_the_data_curve_and_record_method():
     cells = res.cells
     tp = np.concatenate([[0], np.cumsum(cells.events)])[None, :]
     fp = np.concatenate([[0], np.cumsum(cells.non_events)])[None, :]
-    data = tpr_at_fpr(tp, fp, grid)[0]
+    data = tpr_at_fpr(tp, fp, grid, cells.steps)[0]
     inside = (data >= lo - 1e-12) & (data <= hi + 1e-12)
     assert inside.mean() > 0.9
     mid = (grid > 0) & (grid <= 0.5)  # beyond, every replicate may reach TPR 1

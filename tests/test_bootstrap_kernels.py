@@ -30,8 +30,9 @@ from core.curve import sweep
 
 def _cells_like(g, R, C, dtype):
     """Replicate cell counts shaped like the bootstrap's: each cell holds events, non-events
-    or (the mixed cells) both; some rows without events, one without non-events."""
-    kind = g.integers(0, 3, C)  # 0: events only, 1: non-events only, 2: mixed
+    or both (a tie, or a step: non-events before events); a row without events, one
+    without non-events. Returns ``(E, N, tie_weight, steps)``."""
+    kind = g.integers(0, 4, C)  # 0: events only, 1: non-events only, 2: tie, 3: step
     E = g.poisson(2.0, (R, C)) * (kind != 1)
     N = g.poisson(30.0, (R, C)) * (kind != 0)
     E[0] = 0  # no events: NaN statistics
@@ -39,19 +40,20 @@ def _cells_like(g, R, C, dtype):
     if dtype == np.float64:
         E = E * g.uniform(0.5, 2.0, (R, C))
         N = N * g.uniform(0.5, 2.0, (R, C))
-    return E.astype(dtype), N.astype(dtype), kind == 2
+    weight = np.select([kind == 2, kind == 3], [0.5, 1.0], 0.0)
+    return E.astype(dtype), N.astype(dtype), weight, kind == 3
 
 
 @pytest.mark.parametrize("dtype", [np.int32, np.int64, np.float64])
 def test_cell_statistics_equal_the_numpy_statistics(dtype):
     g = np.random.default_rng(7)
     R, C = 9, 700
-    E, N, mixed = _cells_like(g, R, C, dtype)
+    E, N, weight, steps = _cells_like(g, R, C, dtype)
     rg, fg = np.asarray(DEFAULT_RECALL_GRID), np.asarray(DEFAULT_FPR_GRID)
     tp, fp = np.empty((R, C + 1)), np.empty((R, C + 1))
     auc, ap = np.empty(R), np.empty(R)
     pb, tb = np.empty((R, rg.size)), np.empty((R, fg.size))
-    cell_statistics(E, N, mixed, rg, fg, tp, fp, auc, ap, pb, tb)
+    cell_statistics(E, N, weight, steps, rg, fg, tp, fp, auc, ap, pb, tb)
 
     ref_tp = np.concatenate([np.zeros((R, 1)), np.cumsum(E, axis=1, dtype=np.float64)], axis=1)
     ref_fp = np.concatenate([np.zeros((R, 1)), np.cumsum(N, axis=1, dtype=np.float64)], axis=1)
@@ -63,26 +65,27 @@ def test_cell_statistics_equal_the_numpy_statistics(dtype):
         np.testing.assert_array_equal(tp, ref_tp)
         np.testing.assert_array_equal(fp, ref_fp)
     with np.errstate(invalid="ignore", divide="ignore"):
-        want_auc = roc_auc(ref_tp, ref_fp)
+        want_auc = roc_auc(ref_tp, ref_fp, steps)
         want_ap = average_precision(ref_tp, ref_fp)
     np.testing.assert_allclose(auc, want_auc, rtol=1e-12)
     np.testing.assert_allclose(ap, want_ap, rtol=1e-12)
     assert np.isnan(auc[0]) and np.isnan(auc[1]) and np.isnan(ap[0]) and not np.isnan(ap[1])
     np.testing.assert_allclose(pb, precision_at_recall(ref_tp, ref_fp, rg), rtol=1e-14)
-    np.testing.assert_allclose(tb, tpr_at_fpr(ref_tp, ref_fp, fg), rtol=1e-14, atol=1e-15)
+    np.testing.assert_allclose(tb, tpr_at_fpr(ref_tp, ref_fp, fg, steps), rtol=1e-14, atol=1e-15)
+    assert steps.any() and (weight == 0.5).any()
 
 
 def test_cell_statistics_sums_stay_exact_past_32_bits():
     # counts whose products pass 2^31 (10M-row cells) must not wrap in 32-bit arithmetic
     E = np.array([[3_000_000, 0, 2_000_000]], dtype=np.int32)
     N = np.array([[900_000_000, 1_000_000_000, 100_000_000]], dtype=np.int32)
-    mixed = np.array([True, False, True])
+    weight, steps = np.array([0.5, 0.0, 1.0]), np.array([False, False, True])
     rg, fg = np.array([0.5, 1.0]), np.array([0.0, 0.5, 1.0])
     out = (np.empty((1, 4)), np.empty((1, 4)), np.empty(1), np.empty(1), np.empty((1, 2)),
            np.empty((1, 3)))
-    cell_statistics(E, N, mixed, rg, fg, *out)
+    cell_statistics(E, N, weight, steps, rg, fg, *out)
     tp, fp = out[0], out[1]
-    np.testing.assert_allclose(out[2], roc_auc(tp, fp), rtol=1e-12)
+    np.testing.assert_allclose(out[2], roc_auc(tp, fp, steps), rtol=1e-12)
     np.testing.assert_allclose(out[3], average_precision(tp, fp), rtol=1e-12)
 
 

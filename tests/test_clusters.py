@@ -134,7 +134,7 @@ def test_cluster_bootstrap_result_works_with_the_evidence_helpers():
     tp, fp = ch.cumulative()
     from core.bootstrap import roc_auc
 
-    np.testing.assert_allclose(res.roc_auc[:ch.n], roc_auc(tp, fp), rtol=1e-12)
+    np.testing.assert_allclose(res.roc_auc[:ch.n], roc_auc(tp, fp, res.cells.steps), rtol=1e-12)
     with pytest.raises(InputError, match="cohort"):
         cluster_bootstrap(ds, design="case-control")
 
