@@ -226,7 +226,8 @@ def _string_groups(arr) -> tuple[np.ndarray, np.ndarray] | None:
 
     Each string is read as up to four little-endian 64-bit words (bytes past
     its end zeroed) plus its length (-1 for null). Strings of at most 7
-    bytes are one word with the length in the top byte: an injective key.
+    bytes are one word with the length in the top byte: an injective key,
+    grouped in one compiled pass (:func:`core.text_kernels.group_short_keys`).
     Longer ones are grouped by a 64-bit mix of words and length, and every
     row is then checked equal, word by word, to its group's first row (a
     hash collision would show there). Returns ``(codes, first_rows)`` as
@@ -239,6 +240,14 @@ def _string_groups(arr) -> tuple[np.ndarray, np.ndarray] | None:
     longest = int(lengths.max()) if n else 0
     if longest > _WORD_BYTES:
         return None
+    if longest <= 7:  # one injective key per value: one compiled pass (core.text_kernels)
+        from core.text_kernels import group_short_keys
+
+        buf = arr.buffers()[2]
+        data = np.frombuffer(buf, dtype=np.uint8) if buf is not None else np.zeros(1, np.uint8)
+        valid = (np.ones(n, dtype=np.bool_) if not arr.null_count
+                 else np.asarray(arr.is_valid().to_numpy(zero_copy_only=False), dtype=np.bool_))
+        return group_short_keys(np.ascontiguousarray(offsets), data, valid)
     nwords = max(1, -(-longest // 8))
     lo, hi = int(offsets[0]), int(offsets[-1])
     padded = np.zeros(hi - lo + 8 * nwords, dtype=np.uint8)
@@ -251,11 +260,6 @@ def _string_groups(arr) -> tuple[np.ndarray, np.ndarray] | None:
     if arr.null_count:
         length_code = lengths.copy()
         length_code[~np.asarray(arr.is_valid())] = -1
-    if longest <= 7:  # one word, the length in its top byte: injective
-        key = at[starts]
-        key &= _LOW_BYTES[lengths]
-        key |= np.left_shift(length_code.view(np.uint64), np.uint64(56))
-        return _group_keys(key)
     words = []
     for j in range(nwords):
         wj = at[starts + 8 * j] if j else at[starts]
