@@ -1148,3 +1148,45 @@ def test_suggest_mapping():
     assert (coded.label, coded.positive_label) == ("code", 2)  # the rarer value
     counts = suggest_mapping(read_table(csv("score,events,non_events", "0.1,1,5", "0.2,3,2")))
     assert (counts.kind, counts.events, counts.non_events) == ("counts", "events", "non_events")
+
+
+# --------------------------------------------------------------------------- text columns ahead
+
+def _large_frame(n=250_000, seed=3):
+    g = np.random.default_rng(seed)
+    return pd.DataFrame({
+        "score": np.round(g.random(n), 4),
+        "label": (g.random(n) < 0.03).astype(int),
+        "site": np.array(["North", "Quay", "Vale"])[g.integers(0, 3, n)],
+        "patient": np.char.add("P", g.integers(1000, 90_000, n).astype(str)),
+    })
+
+
+def test_text_columns_grouped_ahead_give_the_same_dataset_and_messages(monkeypatch):
+    # Source: common practice, no source -- from 200,000 rows the group and cluster columns
+    # are encoded on a second thread; the Dataset, its fingerprint and the order of the
+    # messages must be those of doing it in turn.
+    import core.intake as intake
+
+    m = {"score": "score", "label": "label", "positive_label": 1, "groups": ["site"],
+         "cluster": "patient"}
+    frame = _large_frame()
+    data = frame.to_csv(index=False).encode()
+    ahead = load_dataset(data, m, file_name="big.csv")
+    monkeypatch.setattr(intake, "_AHEAD_ROWS", 10**12)
+    in_turn = load_dataset(data, m, file_name="big.csv")
+    assert ahead.fingerprint == in_turn.fingerprint
+    np.testing.assert_array_equal(ahead.cluster, in_turn.cluster)
+    np.testing.assert_array_equal(ahead.groups["site"], in_turn.groups["site"])
+    monkeypatch.setattr(intake, "_AHEAD_ROWS", 200_000)
+    bad = frame.copy()
+    bad.loc[[4, 7], "patient"] = None
+    bad_data = bad.to_csv(index=False).encode()
+    with pytest.raises(InputError) as exc:
+        load_dataset(bad_data, m, file_name="big.csv")
+    assert "patient" in str(exc.value) and "missing" in str(exc.value) and "5, 8" in str(exc.value)
+    bad["score"] = bad["score"].astype(object)
+    bad.loc[2, "score"] = "n.a."  # a bad score is still reported first
+    with pytest.raises(InputError) as exc:
+        load_dataset(bad.to_csv(index=False).encode(), m, file_name="big.csv")
+    assert str(exc.value).startswith("score")
