@@ -547,7 +547,40 @@ def _match_positive(uniques: list, present: np.ndarray, positive) -> int | None:
     return None
 
 
+def _zero_one_labels(ser: pd.Series, positive, rows: _Rows):
+    """:func:`_labels` for the common case in two passes: a 0/1 (or boolean) column with
+    both values present, every row kept and an event value that names one of them;
+    None in any other case (the general path then gives the same answer or message)."""
+    dtype = ser.dtype
+    if rows.keep is not None or not isinstance(dtype, np.dtype) or dtype.kind not in "iub":
+        return None
+    if positive is None or (isinstance(positive, str) and not positive.strip()):
+        return None
+    v = ser.to_numpy()
+    n = v.shape[0]
+    if dtype.kind == "b":
+        ones = int(np.count_nonzero(v))
+        zero_one = True
+    else:
+        lo, hi = v.min(), v.max()
+        zero_one = lo == 0 and hi == 1
+        ones = int(np.count_nonzero(v)) if zero_one else 0
+    if not zero_one or ones in (0, n):
+        return None
+    first = v[0]
+    uniques = [first, ~first if dtype.kind == "b" else 1 - first]  # order of first appearance
+    hit = _match_positive(uniques, np.ones(2, dtype=bool), positive)
+    if hit is None:
+        return None
+    matched = uniques[hit].item() if isinstance(uniques[hit], np.generic) else uniques[hit]
+    y = v.astype(bool) if bool(uniques[hit]) else ~v.astype(bool)
+    return y, matched, False
+
+
 def _labels(ser: pd.Series, column: str, positive, rows: _Rows) -> tuple[np.ndarray, object, bool]:
+    fast = _zero_one_labels(ser, positive, rows)
+    if fast is not None:
+        return fast
     codes, uniques, merged = _label_codes(ser)
     missing = rows.bad(codes < 0)
     if missing.size:

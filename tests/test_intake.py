@@ -1190,3 +1190,30 @@ def test_text_columns_grouped_ahead_give_the_same_dataset_and_messages(monkeypat
     with pytest.raises(InputError) as exc:
         load_dataset(bad.to_csv(index=False).encode(), m, file_name="big.csv")
     assert str(exc.value).startswith("score")
+
+
+@pytest.mark.parametrize("dtype", [np.int64, np.int8, np.uint8, bool])
+def test_zero_one_labels_take_the_short_path_to_the_same_answer(monkeypatch, dtype):
+    # Source: common practice, no source -- a 0/1 or boolean label column is read in two
+    # passes; every event value must give what the general path gives, error messages too.
+    import core.intake as intake
+
+    v = np.random.default_rng(1).random(5000) < 0.03
+    for values in (v, ~v, np.zeros(5000, dtype=bool)):
+        ser = pd.Series(values.astype(dtype))
+        for positive in (1, 0, True, False, "1", "0", "yes", "no", "true", 1.0, "1.0", 2, "x"):
+            def run():
+                try:
+                    return intake._labels(ser, "label", positive, intake._Rows(len(ser)))
+                except InputError as exc:
+                    return str(exc)
+
+            short = run()
+            with monkeypatch.context() as mp:
+                mp.setattr(intake, "_zero_one_labels", lambda *a: None)
+                general = run()
+            if isinstance(general, str):
+                assert short == general
+            else:
+                np.testing.assert_array_equal(short[0], general[0])
+                assert short[1:] == general[1:] and type(short[1]) is type(general[1])
