@@ -419,11 +419,15 @@ def _times(ser: pd.Series, column: str, rows: _Rows, *, required: np.ndarray | N
         miss = _missing_text_mask(ser)
         work = ser.where(~miss) if miss.any() else ser
         best = None
-        for fmt in ("ISO8601", None):
+        # ISO 8601, then the format inferred from the first value, then the same read day
+        # first (13/01/2025): a first value such as 02/01/2025 reads as month first and
+        # leaves every later day above 12 unparsed; the reading with fewest failures wins
+        for fmt, dayfirst in (("ISO8601", False), (None, False), (None, True)):
             try:
                 with _pywarnings.catch_warnings():  # "could not infer format": we count failures
                     _pywarnings.simplefilter("ignore", UserWarning)
-                    parsed = pd.to_datetime(work, errors="coerce", utc=True, format=fmt)
+                    parsed = pd.to_datetime(work, errors="coerce", utc=True, format=fmt,
+                                            dayfirst=dayfirst)
             except (ValueError, TypeError):
                 continue
             nbad = int((parsed.isna().to_numpy() & ~miss).sum())

@@ -653,6 +653,24 @@ def test_unparseable_times():
     )
 
 
+def test_day_first_dates_are_read_when_the_first_value_is_ambiguous():
+    # Source: common practice, no source -- European exports write 02/01/2025 for 2 January;
+    # read month first, every later day above 12 would fail, so the day-first reading wins.
+    data = csv("score,label,t", "0.1,0,02/01/2025 09:00", "0.2,1,13/01/2025 14:30",
+               "0.3,0,31/12/2024 23:59")
+    ds = load_dataset(data, {**M, "score_time": "t"})
+    np.testing.assert_array_equal(
+        ds.score_time,
+        np.array(["2025-01-02T09:00", "2025-01-13T14:30", "2024-12-31T23:59"],
+                 dtype="datetime64[ns]"),
+    )
+    us = csv("score,label,t", "0.1,0,01/13/2025", "0.2,1,02/01/2025")  # month first: kept
+    np.testing.assert_array_equal(
+        load_dataset(us, {**M, "score_time": "t"}).score_time,
+        np.array(["2025-01-13", "2025-02-01"], dtype="datetime64[ns]"),
+    )
+
+
 def test_times_with_a_time_zone_become_utc():
     data = csv("score,label,t", "0.1,0,2025-01-01T10:00:00+02:00", "0.2,1,2025-01-01T09:30:00Z")
     ds = load_dataset(data, {**M, "score_time": "t"})
