@@ -29,6 +29,7 @@ __all__ = [
     "recheck_pdf",
     "recheck_title",
     "rule_line",
+    "signature_line",
     "source_words",
     "write_recheck_markdown",
     "write_recheck_pdf",
@@ -301,10 +302,27 @@ def recheck_blocks(rec: dict) -> list[Block]:
         b.append(Block("p", fpp["note"]))
     b.append(Block("h1", "Integrity"))
     b.append(Block("kv", rows=(("Decision record sha256", dr["sha256"]),
+                               ("Decision record signature", signature_line(rec.get("signature"))),
                                ("Recheck record sha256", rec["integrity"]["sha256"]),
                                ("Method", rec["integrity"]["canonical_form"]),
                                ("Note", rec["integrity"]["note"]))))
     return b
+
+
+def signature_line(signature: dict | None) -> str:
+    """The decision record's signature check in words, for the recheck memo and page.
+
+    ``signature`` is the recheck record's ``signature`` key
+    (:meth:`core.signing.Verification.to_dict`), or None when no signature
+    was checked.
+    """
+    if not signature:
+        return ("not checked: no signature file and public key were given, so the record's "
+                "integrity hash shows it is unaltered but not who approved it")
+    if signature.get("valid"):
+        return (f"valid, Ed25519 key {signature['key_fingerprint']}, signed "
+                f"{signature.get('signed_utc') or 'at an unstated time'}")
+    return f"NOT VALID: {signature.get('problem') or 'the signature does not verify'}"
 
 
 # --------------------------------------------------------------------------- PDF

@@ -48,14 +48,24 @@ def test_recheck_checks_the_signature_first(record_path, keys, tmp_path):
     assert _run(["sign", rec, "--key", priv])[0] == 0
     csv = _new_data(tmp_path)
     out = tmp_path / "recheck.json"
+    md, pdf = tmp_path / "recheck.md", tmp_path / "recheck.pdf"
     code, text, err = _run(["recheck", "--record", rec, csv, "--replicates", "50",
-                            "--public-key", pub, "--out", out])
+                            "--public-key", pub, "--out", out, "--markdown", md, "--memo", pdf])
     assert code in (0, 1), err
     fp = key_fingerprint(key)
     assert f"signature: valid, key {fp}" in text.splitlines()
     sig = json.loads(out.read_text())["signature"]
     assert sig["valid"] is True and sig["key_fingerprint"] == fp
     assert sig["record_sha256"] == json.loads(rec.read_text())["integrity"]["sha256"]
+    # the recheck memo says whose signature held, in the Markdown and in the PDF (read back with pypdf)
+    line = f"valid, Ed25519 key {fp}, signed {sig['signed_utc']}"
+    from core.memo_markdown import md_escape
+
+    assert md_escape(line) in md.read_text(encoding="utf-8")
+    from pypdf import PdfReader
+
+    pdf_text = " ".join(" ".join(pg.extract_text() for pg in PdfReader(pdf).pages).split())
+    assert "Decision record signature" in pdf_text and f"Ed25519 key {fp[:16]}" in pdf_text
     # another key: refused before any recheck, exit 2 with one line
     _, other_pub, _ = _write_keys(tmp_path, "other")
     code, text, err = _run(["recheck", "--record", rec, csv, "--public-key", other_pub])
@@ -63,8 +73,10 @@ def test_recheck_checks_the_signature_first(record_path, keys, tmp_path):
     code, _, err = _run(["recheck", "--record", rec, csv, "--signature", str(rec) + ".sig"])
     assert code == 2 and "--public-key" in err
     # without the options the recheck record says it was not checked
-    code, _, err = _run(["recheck", "--record", rec, csv, "--replicates", "50", "--out", out])
+    code, _, err = _run(["recheck", "--record", rec, csv, "--replicates", "50", "--out", out,
+                         "--markdown", md])
     assert code in (0, 1) and json.loads(out.read_text()).get("signature") is None
+    assert "Decision record signature | not checked: no signature file" in md.read_text(encoding="utf-8")
 
 
 def test_recheck_page_checks_an_uploaded_signature(record_path, keys, tmp_path):
