@@ -162,16 +162,17 @@ def cluster_codes(data) -> tuple[np.ndarray, int]:
     """
     from core.dataset import Dataset
 
-    name = "cluster"
     if isinstance(data, Dataset):
         if data.kind != "rows":
             raise InputError("cluster", COUNT_TABLE_NO_CLUSTERS)
         if data.cluster is None:
             raise InputError("cluster", NO_CLUSTER_COLUMN)
-        values = data.cluster
-        name = data.mapping.cluster or "cluster"
-    else:
-        values = data
+        return data.cluster_codes()
+    return _cluster_codes(data, "cluster")
+
+
+def _cluster_codes(values, name: str) -> tuple[np.ndarray, int]:
+    """:func:`cluster_codes` of an array of ids (``name`` for the messages)."""
     arr = np.asarray(values)
     if arr.ndim != 1:
         raise InputError(name, f"must be one id per row (1-d), got shape {arr.shape}")

@@ -349,6 +349,20 @@ class Dataset:
             object.__setattr__(self, "_curve", c)
         return c
 
+    def cluster_codes(self) -> tuple[np.ndarray, int]:
+        """(code of each row's cluster, K): see :func:`core.clusters.cluster_codes`.
+
+        Computed once, then kept (the intake hands over the codes it grouped
+        the ids by, which are the same: order of first appearance).
+        """
+        got = self.__dict__.get("_cluster_codes")
+        if got is None:
+            from core.clusters import _cluster_codes
+
+            got = _cluster_codes(self.cluster, self.mapping.cluster or "cluster")
+            object.__setattr__(self, "_cluster_codes", got)
+        return got
+
     def subset(self, mask) -> Dataset:
         """The rows where ``mask`` holds, as a new row dataset (same mapping)."""
         if self.kind != "rows":

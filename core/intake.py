@@ -1295,6 +1295,11 @@ def _load_rows_with(raw: RawTable, m: Mapping, ahead: _TextAhead) -> Dataset:
         read_notes=raw.info.notes,
         extra_scores=extra_scores,
     )
+    if cluster is not None:
+        # the grouping's codes are cluster_codes' (first appearance, no missing id): keep them
+        cl_codes, cl_dictionary = codes_of["cluster"]
+        object.__setattr__(ds, "_cluster_codes",
+                           (np.asarray(cl_codes, dtype=np.int64), len(cl_dictionary)))
     return ds.with_fingerprint(text_codes_of=codes_of)
 
 

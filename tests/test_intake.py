@@ -1052,6 +1052,31 @@ def test_many_cluster_ids_one_fingerprint_from_csv_parquet_and_arrays():
     assert a.subset(keep).fingerprint == load_dataset(parquet(frame[keep]), mp).fingerprint
 
 
+def test_cluster_codes_kept_from_the_intake_equal_factorizing_the_ids():
+    # reference: pandas.factorize of the Dataset's ids (order of first appearance), as computed
+    # for a Dataset built from arrays; the intake hands over its own grouping's codes instead
+    rng = np.random.default_rng(12)
+    n = 5_000
+    frame = pd.DataFrame({"score": rng.random(n).round(4), "label": (rng.random(n) < 0.1).astype(int),
+                          "patient": np.char.add("P", rng.integers(100, 1_600, n).astype(str))})
+    holed = frame.astype({"score": object})
+    holed.loc[rng.choice(n, 40, replace=False), "score"] = ""  # missing scores, dropped on request
+    mp = {**M, "cluster": "patient"}
+    for ds, dropped in ((load_dataset(frame.to_csv(index=False).encode(), mp), 0),
+                        (load_dataset(holed.to_csv(index=False).encode(),
+                                      {**mp, "drop_missing_scores": True}), 40)):
+        assert ds.dropped_rows == dropped
+        kept = ds.__dict__["_cluster_codes"]
+        codes, uniques = pd.factorize(ds.cluster)
+        assert np.array_equal(kept[0], codes) and kept[1] == len(uniques) == np.unique(ds.cluster).size
+        assert ds.cluster_codes() is kept
+        fresh = Dataset.from_arrays(ds.y_true, ds.y_score, cluster=ds.cluster)
+        assert "_cluster_codes" not in fresh.__dict__
+        assert np.array_equal(fresh.cluster_codes()[0], kept[0]) and fresh.cluster_codes()[1] == kept[1]
+        half = ds.subset(np.arange(ds.y_true.size) % 2 == 0)
+        assert np.array_equal(half.cluster_codes()[0], pd.factorize(half.cluster)[0])
+
+
 # --------------------------------------------------------------------------- round trip property
 
 _TEXT = st.text(alphabet='bcdgkmpqvwxz ,;"é', min_size=1, max_size=6)
