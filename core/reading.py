@@ -367,6 +367,8 @@ def _zero_padded(rows: list[list[str]]) -> list[int]:
 
 def _detect_decimal(rows: list[list[str]], delimiter: str) -> tuple[str, str | None]:
     """(decimal mark, thousands separator) from the sample's data fields."""
+    if not any("," in f for row in rows[1:] for f in row):
+        return ".", None  # no field holds a comma: no decimal comma (the loop's answer, sooner)
     n_comma = n_point = n_grouped = 0
     for row in rows[1:]:
         for f in row:
