@@ -31,14 +31,15 @@ def group_short_keys(offsets, data, valid):  # pragma: no cover - compiled
     ``offsets`` (n + 1,) int64 and ``data`` (uint8) are an Arrow large_string
     array's buffers; ``valid`` (n,) bool (False: null). Codes (int64) number
     the distinct values (nulls one value) in order of first appearance;
-    ``first_rows`` holds each code's first row. The table starts at 1,024
-    slots and doubles when half full.
+    ``first_rows`` holds each code's first row. The table holds (key,
+    code + 1) pairs side by side, so a probe touches one cache line (0 marks
+    an empty slot); it starts at 1,024 slots and doubles when three quarters
+    full.
     """
     n = offsets.shape[0] - 1
     bits = 10
     size = 1 << bits
-    keys = np.empty(size, dtype=np.uint64)
-    slots = np.full(size, -1, dtype=np.int64)
+    table = np.zeros(2 * size, dtype=np.uint64)
     codes = np.empty(n, dtype=np.int64)
     first = np.empty(n, dtype=np.int64)
     group_key = np.empty(n, dtype=np.uint64)
@@ -54,29 +55,28 @@ def group_short_keys(offsets, data, valid):  # pragma: no cover - compiled
             key = _NULL_KEY
         s = np.int64((key * _MIX) >> np.uint64(64 - bits))  # the product's high bits
         while True:
-            g = slots[s]
-            if g < 0:
-                slots[s] = k
-                keys[s] = key
+            g = table[2 * s + 1]
+            if g == 0:
+                table[2 * s] = key
+                table[2 * s + 1] = np.uint64(k + 1)
                 first[k] = i
                 group_key[k] = key
                 codes[i] = k
                 k += 1
                 break
-            if keys[s] == key:
-                codes[i] = g
+            if table[2 * s] == key:
+                codes[i] = np.int64(g) - 1
                 break
             s = (s + 1) & (size - 1)
-        if 2 * k > size:  # half full: double the table and re-insert every key
+        if 4 * k > 3 * size:  # three quarters full: double the table and re-insert every key
             bits += 1
             size = 1 << bits
-            keys = np.empty(size, dtype=np.uint64)
-            slots = np.full(size, -1, dtype=np.int64)
+            table = np.zeros(2 * size, dtype=np.uint64)
             for gg in range(k):
                 kk = group_key[gg]
                 s2 = np.int64((kk * _MIX) >> np.uint64(64 - bits))
-                while slots[s2] >= 0:
+                while table[2 * s2 + 1] != 0:
                     s2 = (s2 + 1) & (size - 1)
-                slots[s2] = gg
-                keys[s2] = kk
+                table[2 * s2] = kk
+                table[2 * s2 + 1] = np.uint64(gg + 1)
     return codes, first[:k].copy()
