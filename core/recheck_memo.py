@@ -310,7 +310,7 @@ def recheck_blocks(rec: dict) -> list[Block]:
 
 
 def signature_line(signature: dict | None) -> str:
-    """The decision record's signature check in words, for the recheck memo and page.
+    """The decision record's signature check in words, for the recheck memo (PDF and Markdown).
 
     ``signature`` is the recheck record's ``signature`` key
     (:meth:`core.signing.Verification.to_dict`), or None when no signature
