@@ -397,8 +397,14 @@ def _check_formulas(raw: RawTable, columns: dict[str, str]) -> None:
             )
 
 
-def _times(ser: pd.Series, column: str, rows: _Rows, *, required: np.ndarray | None) -> np.ndarray:
-    """datetime64[ns] (UTC-naive) of a time column; unparseable values raise."""
+def _times(ser: pd.Series, column: str, rows: _Rows, *, required: np.ndarray | None,
+           warnings: list | None = None) -> np.ndarray:
+    """datetime64[ns] (UTC-naive) of a time column; unparseable values raise.
+
+    When every date reads both month first and day first (no day above 12)
+    and the two readings differ, the month-first one is kept and
+    ``warnings`` gets an ``ambiguous_dates`` warning saying so.
+    """
     if pd.api.types.is_datetime64_any_dtype(ser.dtype):
         if getattr(ser.dtype, "tz", None) is not None:
             ser = ser.dt.tz_convert("UTC").dt.tz_localize(None)
@@ -432,13 +438,15 @@ def _times(ser: pd.Series, column: str, rows: _Rows, *, required: np.ndarray | N
                 continue
             nbad = int((parsed.isna().to_numpy() & ~miss).sum())
             if best is None or nbad < best[0]:
-                best = (nbad, parsed)
+                best = (nbad, parsed, fmt, dayfirst)
             if nbad == 0:
                 break
         if best is None:
             parsed = pd.Series(pd.NaT, index=ser.index, dtype="datetime64[ns, UTC]")
         else:
             parsed = best[1]
+            if warnings is not None and best[0] == 0 and best[2] is None and not best[3]:
+                _warn_ambiguous_dates(work, parsed, miss, column, warnings)
         bad_mask = parsed.isna().to_numpy() & ~miss
         bad = rows.bad(bad_mask)
         if bad.size:
@@ -455,6 +463,33 @@ def _times(ser: pd.Series, column: str, rows: _Rows, *, required: np.ndarray | N
         if miss.size:
             raise InputError(column, "has missing values", miss, hint="Every case needs a time")
     return out
+
+
+def _warn_ambiguous_dates(work: pd.Series, parsed: pd.Series, miss: np.ndarray, column: str,
+                          warnings: list) -> None:
+    """Warn when a month-first reading of every date is also a different, valid day-first one."""
+    with _pywarnings.catch_warnings():
+        _pywarnings.simplefilter("ignore", UserWarning)
+        try:
+            other = pd.to_datetime(work, errors="coerce", utc=True, dayfirst=True)
+        except (ValueError, TypeError):
+            return
+    if bool((other.isna().to_numpy() & ~miss).any()):
+        return  # the day-first reading fails somewhere: the dates are month first
+    differ = (other != parsed).to_numpy() & ~miss
+    if not differ.any():
+        return
+    k = int(np.flatnonzero(differ)[0])
+    warnings.append(
+        IntakeWarning(
+            "ambiguous_dates",
+            f"{column}: every date can be read month first or day first (no day is above 12); "
+            f"they were read month first ({work.iloc[k]} as "
+            f"{parsed.iloc[k].strftime('%Y-%m-%d')}). If they are day first, write them as "
+            f"ISO 8601 (YYYY-MM-DD) and load the file again",
+            column,
+        )
+    )
 
 
 # =========================================================================== labels
@@ -1227,10 +1262,12 @@ def _load_rows_with(raw: RawTable, m: Mapping, ahead: _TextAhead) -> Dataset:
     st_all = ot_all = None
     if m.score_time is not None:
         st_all = _times(
-            raw.frame[m.score_time], m.score_time, rows, required=np.ones(n, dtype=bool)
+            raw.frame[m.score_time], m.score_time, rows, required=np.ones(n, dtype=bool),
+            warnings=warnings,
         )
     if m.outcome_time is not None:
-        ot_all = _times(raw.frame[m.outcome_time], m.outcome_time, rows, required=None)
+        ot_all = _times(raw.frame[m.outcome_time], m.outcome_time, rows, required=None,
+                        warnings=warnings)
     cc_all = None
     if m.case_cost is not None:
         cc_all = _amounts(raw, m.case_cost, rows, what="amounts", need=y_all, allow_missing=False)

@@ -671,6 +671,27 @@ def test_day_first_dates_are_read_when_the_first_value_is_ambiguous():
     )
 
 
+def test_dates_that_read_both_ways_are_read_month_first_with_a_warning():
+    # Source: common practice, no source -- 02/01/2025 is 1 February month first and 2 January
+    # day first; with no day above 12 the file cannot say which, so the intake says what it did.
+    data = csv("score,label,t", "0.1,0,02/01/2025", "0.2,1,03/04/2025", "0.3,0,12/12/2024")
+    ds = load_dataset(data, {**M, "score_time": "t"})
+    np.testing.assert_array_equal(
+        ds.score_time, np.array(["2025-02-01", "2025-03-04", "2024-12-12"], dtype="datetime64[ns]"))
+    (w,) = [w for w in ds.warnings if w.code == "ambiguous_dates"]
+    assert w.column == "t" and w.message == (
+        "t: every date can be read month first or day first (no day is above 12); they were read "
+        "month first (02/01/2025 as 2025-02-01). If they are day first, write them as ISO 8601 "
+        "(YYYY-MM-DD) and load the file again")
+    # no warning when the readings agree, when a day is above 12 (either way), or for ISO dates
+    for rows in (("0.1,0,01/01/2025", "0.2,1,12/12/2025"),
+                 ("0.1,0,02/01/2025", "0.2,1,13/01/2025"),
+                 ("0.1,0,01/13/2025", "0.2,1,02/01/2025"),
+                 ("0.1,0,2025-02-01", "0.2,1,2025-03-04")):
+        ds = load_dataset(csv("score,label,t", *rows), {**M, "score_time": "t"})
+        assert not [w for w in ds.warnings if w.code == "ambiguous_dates"], rows
+
+
 def test_times_with_a_time_zone_become_utc():
     data = csv("score,label,t", "0.1,0,2025-01-01T10:00:00+02:00", "0.2,1,2025-01-01T09:30:00Z")
     ds = load_dataset(data, {**M, "score_time": "t"})
