@@ -300,5 +300,5 @@ def render(dataset, *, pre: str = K, store: str = state.POLICY, store_fp: str = 
         st.error(str(exc))
         return None
     l2.download_button("Save this policy (TOML)", dumps_policy(policy), file_name="policy.toml",
-                       mime="application/toml", key=pre + "save")
+                       mime="application/toml", key=pre + "save", on_click="ignore")
     return policy

@@ -88,6 +88,7 @@ def test_recheck_page_upload_verdicts_policy_change_and_exports(tmp_path):
         with page.expect_download() as md_dl:
             page.get_by_role("button", name="Recheck memo (Markdown)").click()
         md_dl.value.save_as(tmp_path / "recheck.md")
+        wait_idle(page)  # downloads do not rerun the page (on_click="ignore"): nothing to wait for
         page.get_by_role("button", name="Build the PDF memo").click()
         page.wait_for_selector('button:has-text("Recheck memo (PDF)")', timeout=120_000)
         wait_idle(page)

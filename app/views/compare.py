@@ -285,14 +285,14 @@ def render() -> None:
     created[ck] = doc["created_utc"]
     e1, e2, e3 = st.columns(3)
     e1.download_button("Comparison (JSON)", dumps_compare_document(doc), file_name="comparison.json",
-                       mime="application/json", key=K + "dl_json")
+                       mime="application/json", key=K + "dl_json", on_click="ignore")
     e2.download_button("Comparison memo (Markdown)", compare_markdown(doc),
-                       file_name="comparison_memo.md", mime="text/markdown", key=K + "dl_md")
+                       file_name="comparison_memo.md", mime="text/markdown", key=K + "dl_md", on_click="ignore")
     sha = doc["integrity"]["sha256"]
     built = ss.get(PDF)
     if built is not None and built[0] == sha:
         e3.download_button("Comparison memo (PDF)", built[1], file_name="comparison_memo.pdf",
-                           mime="application/pdf", key=K + "dl_pdf", type="primary")
+                           mime="application/pdf", key=K + "dl_pdf", type="primary", on_click="ignore")
     else:
         e3.button("Build the PDF memo", key=K + "build_pdf", on_click=_build_pdf, args=(doc,),
                   help="Lays out the comparison memo (a second or so).")

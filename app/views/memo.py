@@ -404,7 +404,8 @@ def render() -> None:
         st.error(str(exc))
         return
     st.download_button("Save the memo fields (TOML)", dumps_memo_fields(fields),
-                       file_name="memo_fields.toml", mime="application/toml", key=K + "save_fields")
+                       file_name="memo_fields.toml", mime="application/toml", key=K + "save_fields",
+                       on_click="ignore")
     if policy is None:
         return
     st.divider()
@@ -433,16 +434,16 @@ def render() -> None:
     built = ss.get(PDF)
     if built is not None and built[0] == sha:
         d1.download_button("Memo (PDF)", built[1], file_name=f"{stem}.pdf", mime="application/pdf",
-                           key=K + "dl_pdf", type="primary")
+                           key=K + "dl_pdf", type="primary", on_click="ignore")
     else:
         d1.button("Build the PDF memo", key=K + "build_pdf", type="primary", on_click=_build_pdf,
                   args=(sha,), help="Draws the figures and lays out the memo (a second or so).")
     d2.download_button("Memo (Markdown)", memo_markdown(record), file_name=f"{stem}.md",
-                       mime="text/markdown", key=K + "dl_md")
+                       mime="text/markdown", key=K + "dl_md", on_click="ignore")
     d3.download_button("Decision record (JSON)", dumps_record(record), file_name="decision_record.json",
-                       mime="application/json", key=K + "dl_record")
+                       mime="application/json", key=K + "dl_record", on_click="ignore")
     d4.download_button("Test vectors (CSV)", threshold_vectors_csv(record), file_name="test_vectors.csv",
-                       mime="text/csv", key=K + "dl_vectors")
+                       mime="text/csv", key=K + "dl_vectors", on_click="ignore")
     with st.expander("Preview the memo (Markdown)"):
         st.markdown(memo_markdown(record))
 

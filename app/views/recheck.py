@@ -319,13 +319,13 @@ def _show_exports(rec: dict) -> None:
     stem = "recheck"
     d1, d2, d3 = st.columns(3)
     d1.download_button("Recheck record (JSON)", dumps_recheck(rec), file_name=f"{stem}.json",
-                       mime="application/json", key=K + "dl_json")
+                       mime="application/json", key=K + "dl_json", on_click="ignore")
     d2.download_button("Recheck memo (Markdown)", recheck_markdown(rec), file_name=f"{stem}.md",
-                       mime="text/markdown", key=K + "dl_md")
+                       mime="text/markdown", key=K + "dl_md", on_click="ignore")
     built = st.session_state.get(PDF)
     if built is not None and built[0] == rec["integrity"]["sha256"]:
         d3.download_button("Recheck memo (PDF)", built[1], file_name=f"{stem}.pdf",
-                           mime="application/pdf", key=K + "dl_pdf")
+                           mime="application/pdf", key=K + "dl_pdf", on_click="ignore")
     else:
         d3.button("Build the PDF memo", key=K + "build_pdf", on_click=_build_pdf)
     st.caption(f"Decision record {rec['decision_record']['sha256']}; recheck record "
