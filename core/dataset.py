@@ -363,6 +363,16 @@ class Dataset:
             object.__setattr__(self, "_cluster_codes", got)
         return got
 
+    def keep_cluster_codes(self, codes: np.ndarray, n_clusters: int) -> None:
+        """Keep codes already known for :meth:`cluster_codes` (the intake's grouping).
+
+        ``codes`` must number this dataset's cluster ids 0 .. K-1 in order of
+        first appearance, with no missing id: what :meth:`cluster_codes`
+        would compute.
+        """
+        object.__setattr__(self, "_cluster_codes",
+                           (np.asarray(codes, dtype=np.int64), int(n_clusters)))
+
     def subset(self, mask) -> Dataset:
         """The rows where ``mask`` holds, as a new row dataset (same mapping)."""
         if self.kind != "rows":

@@ -467,15 +467,26 @@ def _times(ser: pd.Series, column: str, rows: _Rows, *, required: np.ndarray | N
 
 def _warn_ambiguous_dates(work: pd.Series, parsed: pd.Series, miss: np.ndarray, column: str,
                           warnings: list) -> None:
-    """Warn when a month-first reading of every date is also a different, valid day-first one."""
-    with _pywarnings.catch_warnings():
-        _pywarnings.simplefilter("ignore", UserWarning)
-        try:
-            other = pd.to_datetime(work, errors="coerce", utc=True, dayfirst=True)
-        except (ValueError, TypeError):
-            return
-    if bool((other.isna().to_numpy() & ~miss).any()):
-        return  # the day-first reading fails somewhere: the dates are month first
+    """Warn when a month-first reading of every date is also a different, valid day-first one.
+
+    The first 1,000 dates are read day first before all of them, so a month-first column
+    with any day above 12 among them costs a short parse, not a second full one.
+    """
+
+    def day_first(values: pd.Series):
+        with _pywarnings.catch_warnings():
+            _pywarnings.simplefilter("ignore", UserWarning)
+            try:
+                return pd.to_datetime(values, errors="coerce", utc=True, dayfirst=True)
+            except (ValueError, TypeError):
+                return None
+
+    head = day_first(work[~miss].iloc[:1_000])
+    if head is None or bool(head.isna().any()):
+        return  # some day is above 12 read day first: the dates are month first
+    other = day_first(work)
+    if other is None or bool((other.isna().to_numpy() & ~miss).any()):
+        return
     differ = (other != parsed).to_numpy() & ~miss
     if not differ.any():
         return
@@ -1332,11 +1343,8 @@ def _load_rows_with(raw: RawTable, m: Mapping, ahead: _TextAhead) -> Dataset:
         read_notes=raw.info.notes,
         extra_scores=extra_scores,
     )
-    if cluster is not None:
-        # the grouping's codes are cluster_codes' (first appearance, no missing id): keep them
-        cl_codes, cl_dictionary = codes_of["cluster"]
-        object.__setattr__(ds, "_cluster_codes",
-                           (np.asarray(cl_codes, dtype=np.int64), len(cl_dictionary)))
+    if cluster is not None:  # the grouping's codes are cluster_codes' (first appearance)
+        ds.keep_cluster_codes(codes_of["cluster"][0], len(codes_of["cluster"][1]))
     return ds.with_fingerprint(text_codes_of=codes_of)
 
 
